@@ -1,0 +1,190 @@
+/**
+ * Autocovariance sums over several chains, lag by lag, for the effective-sample-size estimator.
+ *
+ * For centered chains c_j (j = 1..M, length N each) this gives
+ *   L(t) = sum_j sum_{i=0}^{N-1-t} c_j[i] c_j[i+t],
+ * so that the mean over chains of the "biased" autocovariance (divisor N, Geyer 1992) is
+ * L(t) / (M N).
+ *
+ * Geyer's initial positive sequence usually stops after a few lags, so the lags are summed
+ * directly and only on demand. A slowly mixing chain needs many lags; once the requested lag
+ * reaches the point where one FFT pass is cheaper than continuing lag by lag, all lags are computed
+ * at once by the Wiener–Khinchin route (zero-padded FFT, power spectrum, inverse FFT), which gives
+ * the same sums up to rounding.
+ */
+export class AutocovarianceSums {
+  /** Lag from which the FFT path takes over (lags below it are summed directly). */
+  readonly fftFromLag: number;
+  private readonly sums: Float64Array;
+  private computed = 0;
+  private allComputed = false;
+  private centered: Float64Array = new Float64Array(0);
+  private nChains = 0;
+  private chainLength = 0;
+  private fft: FftWorkspace | undefined;
+
+  /**
+   * @param maxChainLength longest chain this workspace will see
+   * @param fftFromLag lag at which to switch to the FFT path; default from a cost model
+   *   (direct: M·N multiply-adds per lag; FFT: about (M/2 + 1) transforms of size P = 2^ceil(log2 2N))
+   */
+  constructor(maxChainLength: number, fftFromLag?: number) {
+    this.sums = new Float64Array(Math.max(maxChainLength, 1));
+    this.fftFromLag = fftFromLag ?? defaultFftFromLag(maxChainLength);
+  }
+
+  /** Start over with new centered chains, laid out chain after chain in `centered`. */
+  load(centered: Float64Array, nChains: number, chainLength: number): void {
+    if (chainLength > this.sums.length) throw new RangeError('chain longer than the workspace');
+    this.centered = centered;
+    this.nChains = nChains;
+    this.chainLength = chainLength;
+    this.computed = 0;
+    this.allComputed = false;
+  }
+
+  /** L(t) for 0 <= t < chainLength. */
+  at(lag: number): number {
+    if (this.allComputed || lag < this.computed) return this.sums[lag];
+    if (lag >= this.fftFromLag) {
+      this.computeAllByFft();
+      return this.sums[lag];
+    }
+    while (this.computed <= lag) {
+      this.sums[this.computed] = this.directSum(this.computed);
+      this.computed++;
+    }
+    return this.sums[lag];
+  }
+
+  private directSum(lag: number): number {
+    const c = this.centered;
+    const n = this.chainLength;
+    let total = 0;
+    for (let j = 0; j < this.nChains; j++) {
+      const base = j * n;
+      const end = base + n - lag;
+      let s = 0;
+      for (let i = base; i < end; i++) s += c[i] * c[i + lag];
+      total += s;
+    }
+    return total;
+  }
+
+  private computeAllByFft(): void {
+    const n = this.chainLength;
+    const size = fftSizeFor(n);
+    if (this.fft === undefined || this.fft.size !== size) this.fft = new FftWorkspace(size);
+    const w = this.fft;
+    const { re, im, power } = w;
+    power.fill(0);
+    const c = this.centered;
+    // Two real chains per complex transform: z = a + i b. With Z = FFT(z),
+    // |A_k|^2 + |B_k|^2 = (|Z_k|^2 + |Z_{-k}|^2) / 2, which is all we need since the sums
+    // over chains of the power spectra give the sum of the autocovariances.
+    for (let j = 0; j < this.nChains; j += 2) {
+      re.fill(0);
+      im.fill(0);
+      re.set(c.subarray(j * n, j * n + n));
+      if (j + 1 < this.nChains) im.set(c.subarray((j + 1) * n, (j + 1) * n + n));
+      w.transform(re, im);
+      for (let k = 0; k < size; k++) {
+        const kk = k === 0 ? 0 : size - k;
+        power[k] += 0.5 * (re[k] * re[k] + im[k] * im[k] + re[kk] * re[kk] + im[kk] * im[kk]);
+      }
+    }
+    // The power spectrum is real and even, so the forward transform equals the inverse one
+    // up to the factor 1/size.
+    re.set(power);
+    im.fill(0);
+    w.transform(re, im);
+    for (let t = 0; t < n; t++) this.sums[t] = re[t] / size;
+    this.allComputed = true;
+  }
+}
+
+/** Smallest power of two >= 2N, so that the circular correlation has no wrap-around. */
+function fftSizeFor(chainLength: number): number {
+  let size = 2;
+  while (size < 2 * chainLength) size *= 2;
+  return size;
+}
+
+/**
+ * Cost model for the switch: a direct lag costs about M·N multiply-adds; the FFT path costs about
+ * (M/2 + 1) complex transforms of size P, each about 2.5·P·log2(P) multiply-add equivalents
+ * (constant measured with bench/diagnostics.ts), so per chain the break-even lag is near
+ * 1.5·P·log2(P)/N.
+ */
+function defaultFftFromLag(chainLength: number): number {
+  const size = fftSizeFor(chainLength);
+  return Math.max(16, Math.ceil((1.5 * size * Math.log2(size)) / Math.max(chainLength, 1)));
+}
+
+/** Iterative radix-2 complex FFT of one fixed power-of-two size, tables kept for reuse. */
+class FftWorkspace {
+  readonly re: Float64Array;
+  readonly im: Float64Array;
+  readonly power: Float64Array;
+  private readonly cos: Float64Array;
+  private readonly sin: Float64Array;
+  private readonly bitReversed: Uint32Array;
+
+  constructor(readonly size: number) {
+    this.re = new Float64Array(size);
+    this.im = new Float64Array(size);
+    this.power = new Float64Array(size);
+    const half = size / 2;
+    this.cos = new Float64Array(half);
+    this.sin = new Float64Array(half);
+    for (let k = 0; k < half; k++) {
+      const angle = (2 * Math.PI * k) / size;
+      this.cos[k] = Math.cos(angle);
+      this.sin[k] = Math.sin(angle);
+    }
+    const bits = Math.round(Math.log2(size));
+    this.bitReversed = new Uint32Array(size);
+    for (let i = 0; i < size; i++) {
+      let r = 0;
+      for (let b = 0; b < bits; b++) r |= ((i >>> b) & 1) << (bits - 1 - b);
+      this.bitReversed[i] = r;
+    }
+  }
+
+  /** In place: X_k = sum_n x_n exp(-2 pi i k n / size). */
+  transform(re: Float64Array, im: Float64Array): void {
+    const size = this.size;
+    const rev = this.bitReversed;
+    for (let i = 0; i < size; i++) {
+      const j = rev[i];
+      if (j > i) {
+        const tr = re[i];
+        re[i] = re[j];
+        re[j] = tr;
+        const ti = im[i];
+        im[i] = im[j];
+        im[j] = ti;
+      }
+    }
+    const cos = this.cos;
+    const sin = this.sin;
+    for (let span = 2; span <= size; span *= 2) {
+      const half = span / 2;
+      const step = size / span;
+      for (let start = 0; start < size; start += span) {
+        for (let k = 0; k < half; k++) {
+          const wr = cos[k * step];
+          const wi = -sin[k * step];
+          const a = start + k;
+          const b = a + half;
+          const tr = re[b] * wr - im[b] * wi;
+          const ti = re[b] * wi + im[b] * wr;
+          re[b] = re[a] - tr;
+          im[b] = im[a] - ti;
+          re[a] += tr;
+          im[a] += ti;
+        }
+      }
+    }
+  }
+}

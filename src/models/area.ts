@@ -1,0 +1,414 @@
+/**
+ * The area-level model (Fay & Herriot 1979) and its Gibbs samplers.
+ *
+ *   y_i = θ_i + e_i,  e_i ~ N(0, ψ_i), ψ_i known          (sites with a sample)
+ *   θ_i = x_iᵀβ + u_i, u_i ~ N(0, σ²)                     (every site)
+ *   β ~ fixed prior (flat or normal), σ ~ hyperprior (uniform on σ, half-Cauchy, inverse-gamma on σ²)
+ *
+ * Two samplers share the quantities they record (β, σ, every θ_i):
+ *
+ * - `collapsed` (default). σ is drawn from its marginal posterior p(σ | y), with β and θ
+ *   integrated out analytically, by univariate slice sampling on t = log σ (Neal 2003, "Slice
+ *   sampling", Annals of Statistics 31(3), stepping-out and shrinkage). Then β | σ, y and
+ *   θ | β, σ, y are drawn exactly. Because β and θ are never conditioned on in the σ update, the
+ *   chain does not stall when σ is near zero — the corner where plain Gibbs mixes slowly
+ *   (Gelman 2006, Bayesian Analysis 1(3); Yu & Meng 2011, JCGS 20(3)) — and each sweep is a
+ *   near-independent draw.
+ * - `plain`. The textbook three-block Gibbs sampler θ | β,σ; β | θ,σ; σ² | θ,β, with the
+ *   half-Cauchy prior handled by the inverse-gamma mixture of Huang & Wand (2013, Bayesian
+ *   Analysis 8(2)); kept to show, in the benchmark, why the collapsed sampler is the default.
+ *
+ * Marginal of σ² (β integrated out; V = diag(σ² + ψ_i), prior β ~ N(b0, S) or flat with S⁻¹ = 0):
+ *   log p(σ² | y) = log p(σ²) − ½ Σ log(σ² + ψ_i) − ½ log|P| − ½ (c − bᵀP⁻¹b) + const,
+ *   P = XᵀV⁻¹X + S⁻¹,  b = XᵀV⁻¹y + S⁻¹b0,  c = yᵀV⁻¹y + b0ᵀS⁻¹b0
+ * (Gelman et al. 2013, Bayesian Data Analysis 3rd ed., §5.4 eqs. 5.17–5.21 for the
+ * intercept-only case; the same Gaussian integral with a general design).
+ */
+import type { CoefficientPrior, ScalePrior } from '../config/types.js';
+import type { AreaData } from '../data/types.js';
+import type { Kernel, Phase } from '../sampler/kernel.js';
+import type { Rng } from '../sampler/rng.js';
+import { gamma, inverseGamma, normal } from '../sampler/variates.js';
+import { choleskyLower, solveLowerInPlace, solveUpperTransposedInPlace } from './linalg.js';
+
+export type AreaSamplerMethod = 'collapsed' | 'plain';
+
+export interface AreaModelSpec {
+  data: AreaData;
+  coefficients: CoefficientPrior;
+  siteSd: ScalePrior;
+  method: AreaSamplerMethod;
+}
+
+/** Monitored quantity names, in recording order: coefficients, site_sd, then every site. */
+export function areaQuantities(data: AreaData): string[] {
+  return [
+    ...data.coefficientNames.map((name) => `coef:${name}`),
+    'site_sd',
+    ...data.siteIds.map((id) => `site:${id}`),
+  ];
+}
+
+/** The sampled sites packed contiguously, so hot loops touch no unsampled rows. */
+interface Packed {
+  p: number;
+  /** Number of sampled sites. */
+  n: number;
+  X: Float64Array; // n × p
+  y: Float64Array;
+  psi: Float64Array;
+  /** Position of each sampled site among all sites. */
+  index: Int32Array;
+  /** Prior precision on each coefficient (0 for flat) and precision × mean. */
+  priorPrecision: number;
+  priorPrecisionMean: number;
+  /** b0ᵀS⁻¹b0 summed over coefficients. */
+  priorQuad: number;
+}
+
+function pack(spec: AreaModelSpec): Packed {
+  const { data } = spec;
+  const { p } = data;
+  const index: number[] = [];
+  for (let i = 0; i < data.m; i++) if (data.hasData[i]) index.push(i);
+  const n = index.length;
+  const X = new Float64Array(n * p);
+  const y = new Float64Array(n);
+  const psi = new Float64Array(n);
+  index.forEach((site, k) => {
+    X.set(data.X.subarray(site * p, site * p + p), k * p);
+    y[k] = data.direct[site];
+    psi[k] = data.variance[site];
+  });
+  const prior = spec.coefficients;
+  const precision = prior.kind === 'normal' ? 1 / (prior.sd * prior.sd) : 0;
+  const mean = prior.kind === 'normal' ? prior.mean : 0;
+  return {
+    p,
+    n,
+    X,
+    y,
+    psi,
+    index: Int32Array.from(index),
+    priorPrecision: precision,
+    priorPrecisionMean: precision * mean,
+    priorQuad: p * precision * mean * mean,
+  };
+}
+
+/**
+ * Log prior density of t = log σ (Jacobian included), up to a constant.
+ * uniform on σ: p(t) ∝ σ; half-Cauchy(A): ∝ σ / (1 + (σ/A)²); inverse-gamma(a, b) on σ²:
+ * p(σ²)·dσ²/dt ∝ (σ²)^(−a) e^(−b/σ²).
+ */
+export function logPriorLogSigma(t: number, prior: ScalePrior): number {
+  switch (prior.kind) {
+    case 'uniform':
+      return t;
+    case 'half_cauchy': {
+      const r = Math.exp(t) / prior.scale;
+      return t - Math.log1p(r * r);
+    }
+    case 'inverse_gamma':
+      return -2 * prior.shape * t - prior.scale * Math.exp(-2 * t);
+  }
+}
+
+/** Work buffers for the marginal of σ², reused across evaluations. */
+interface MarginalWork {
+  P: Float64Array; // p × p, then its Cholesky factor (lower)
+  v: Float64Array; // b, then L⁻¹b
+}
+
+/**
+ * log p(t = log σ | y) up to a constant, leaving the Cholesky factor of P and L⁻¹b in `work`
+ * so the caller can draw β at the same σ without another pass over the sites.
+ */
+function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: MarginalWork): number {
+  const { p, n, X, y, psi } = d;
+  const s2 = Math.exp(2 * t);
+  const P = work.P;
+  const b = work.v;
+  P.fill(0);
+  b.fill(0);
+  let logDetV = 0;
+  let ywy = 0;
+  for (let k = 0; k < n; k++) {
+    const varTotal = s2 + psi[k];
+    const w = 1 / varTotal;
+    logDetV += Math.log(varTotal);
+    const yk = y[k];
+    ywy += w * yk * yk;
+    const row = k * p;
+    for (let j = 0; j < p; j++) {
+      const wx = w * X[row + j];
+      b[j] += wx * yk;
+      for (let l = 0; l <= j; l++) P[j * p + l] += wx * X[row + l];
+    }
+  }
+  for (let j = 0; j < p; j++) {
+    P[j * p + j] += d.priorPrecision;
+    b[j] += d.priorPrecisionMean;
+  }
+  const logDetP = choleskyLower(P, p);
+  if (!Number.isFinite(logDetP)) return -Infinity;
+  solveLowerInPlace(P, p, b);
+  let bPb = 0;
+  for (let j = 0; j < p; j++) bPb += b[j] * b[j];
+  const quad = ywy + d.priorQuad - bPb;
+  return -0.5 * (logDetV + logDetP + quad) + logPriorLogSigma(t, prior);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Collapsed sampler
+
+export interface CollapsedState {
+  logSigma: number;
+  logTarget: number;
+  /** Slice width on the log σ scale, tuned during warmup. */
+  width: number;
+  beta: Float64Array;
+  theta: Float64Array;
+  work: MarginalWork;
+  /** Welford running moments of log σ over warmup, for tuning the width. */
+  tuneCount: number;
+  tuneMean: number;
+  tuneM2: number;
+}
+
+const STEP_OUT_LIMIT = 32;
+
+/** Draws that tune the slice width during warmup: after 25, 50, 100, … iterations. */
+function isTuningPoint(iteration: number): boolean {
+  const k = (iteration + 1) / 25;
+  return Number.isInteger(k) && (k & (k - 1)) === 0;
+}
+
+/** One slice-sampling update of log σ (Neal 2003, fig. 3 stepping-out, fig. 5 shrinkage). */
+function sliceUpdateLogSigma(state: CollapsedState, d: Packed, prior: ScalePrior, rng: Rng): void {
+  const t0 = state.logSigma;
+  const level = state.logTarget + Math.log(rng.uniform()); // log of a uniform height under the density
+  const w = state.width;
+  let lo = t0 - w * rng.uniform();
+  let hi = lo + w;
+  let leftSteps = Math.floor(STEP_OUT_LIMIT * rng.uniform());
+  let rightSteps = STEP_OUT_LIMIT - 1 - leftSteps;
+  while (leftSteps > 0 && logMarginalLogSigma(lo, d, prior, state.work) > level) {
+    lo -= w;
+    leftSteps--;
+  }
+  while (rightSteps > 0 && logMarginalLogSigma(hi, d, prior, state.work) > level) {
+    hi += w;
+    rightSteps--;
+  }
+  for (;;) {
+    const t1 = lo + (hi - lo) * rng.uniform();
+    const value = logMarginalLogSigma(t1, d, prior, state.work);
+    if (value > level) {
+      state.logSigma = t1;
+      state.logTarget = value;
+      return; // the work buffers now hold P's factor and L⁻¹b at the accepted σ
+    }
+    if (t1 < t0) lo = t1;
+    else hi = t1;
+  }
+}
+
+/** β | σ, y ~ N(P⁻¹b, P⁻¹), from the factor L (P = LLᵀ) and v = L⁻¹b left in the work buffers. */
+function drawBetaFromFactor(state: CollapsedState, p: number, rng: Rng): void {
+  const { beta, work } = state;
+  for (let j = 0; j < p; j++) beta[j] = work.v[j] + normal(rng);
+  solveUpperTransposedInPlace(work.P, p, beta);
+}
+
+function linearPredictor(X: Float64Array, p: number, site: number, beta: Float64Array): number {
+  let eta = 0;
+  const row = site * p;
+  for (let j = 0; j < p; j++) eta += X[row + j] * beta[j];
+  return eta;
+}
+
+/** θ_i | β, σ, y: precision-weighted for sampled sites, synthetic (prior) for the others. */
+function drawTheta(
+  theta: Float64Array,
+  data: AreaData,
+  beta: Float64Array,
+  sigma2: number,
+  rng: Rng,
+): void {
+  const { X, p, direct, variance, hasData } = data;
+  const sigma = Math.sqrt(sigma2);
+  for (let i = 0; i < data.m; i++) {
+    const eta = linearPredictor(X, p, i, beta);
+    if (hasData[i]) {
+      const gamma_i = sigma2 / (sigma2 + variance[i]);
+      const mean = eta + gamma_i * (direct[i] - eta);
+      theta[i] = mean + Math.sqrt(gamma_i * variance[i]) * normal(rng);
+    } else {
+      theta[i] = eta + sigma * normal(rng);
+    }
+  }
+}
+
+/** A dispersed starting σ from the data: the excess spread of the direct estimates, jittered. */
+function startingLogSigma(d: Packed, rng: Rng): number {
+  let mean = 0;
+  for (let k = 0; k < d.n; k++) mean += d.y[k];
+  mean /= d.n;
+  let spread = 0;
+  let psiMean = 0;
+  for (let k = 0; k < d.n; k++) {
+    spread += (d.y[k] - mean) ** 2;
+    psiMean += d.psi[k];
+  }
+  spread /= Math.max(d.n - 1, 1);
+  psiMean /= d.n;
+  const excess = Math.max(spread - psiMean, 0.05 * spread, 1e-12);
+  return 0.5 * Math.log(excess) + normal(rng);
+}
+
+function tuneWidth(state: CollapsedState, phase: Phase, iteration: number): void {
+  if (phase !== 'warmup') return;
+  state.tuneCount++;
+  const delta = state.logSigma - state.tuneMean;
+  state.tuneMean += delta / state.tuneCount;
+  state.tuneM2 += delta * (state.logSigma - state.tuneMean);
+  if (isTuningPoint(iteration) && state.tuneCount > 10) {
+    const sd = Math.sqrt(state.tuneM2 / (state.tuneCount - 1));
+    if (sd > 0) state.width = 3 * sd;
+  }
+}
+
+export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState> {
+  const d = pack(spec);
+  const { data, siteSd } = spec;
+  const { p } = data;
+  return {
+    quantities: areaQuantities(data),
+    init(rng) {
+      const work = { P: new Float64Array(p * p), v: new Float64Array(p) };
+      const logSigma = startingLogSigma(d, rng);
+      return {
+        logSigma,
+        logTarget: logMarginalLogSigma(logSigma, d, siteSd, work),
+        width: 1,
+        beta: new Float64Array(p),
+        theta: new Float64Array(data.m),
+        work,
+        tuneCount: 0,
+        tuneMean: 0,
+        tuneM2: 0,
+      };
+    },
+    step(state, rng, phase, iteration) {
+      sliceUpdateLogSigma(state, d, siteSd, rng);
+      drawBetaFromFactor(state, p, rng);
+      drawTheta(state.theta, data, state.beta, Math.exp(2 * state.logSigma), rng);
+      tuneWidth(state, phase, iteration);
+      return state;
+    },
+    record(state, out, stride, offset) {
+      recordQuantities(state.beta, Math.exp(state.logSigma), state.theta, out, stride, offset);
+    },
+  };
+}
+
+function recordQuantities(
+  beta: Float64Array,
+  sigma: number,
+  theta: Float64Array,
+  out: Float64Array,
+  stride: number,
+  offset: number,
+): void {
+  let q = 0;
+  for (let j = 0; j < beta.length; j++) out[q++ * stride + offset] = beta[j];
+  out[q++ * stride + offset] = sigma;
+  for (let i = 0; i < theta.length; i++) out[q++ * stride + offset] = theta[i];
+}
+
+// ---------------------------------------------------------------------------------------------
+// Plain Gibbs sampler (for comparison)
+
+export interface PlainState {
+  beta: Float64Array;
+  theta: Float64Array;
+  sigma2: number;
+  /** Huang & Wand auxiliary variable (half-Cauchy prior only). */
+  aux: number;
+  P: Float64Array;
+  b: Float64Array;
+}
+
+/** σ² | θ, β (and the auxiliary variable), conjugate for each hyperprior. */
+function drawSigma2Plain(state: PlainState, sumSquares: number, m: number, prior: ScalePrior, rng: Rng): void {
+  switch (prior.kind) {
+    case 'uniform': // p(σ²) ∝ (σ²)^(−1/2)
+      state.sigma2 = inverseGamma(rng, (m - 1) / 2, sumSquares / 2);
+      return;
+    case 'inverse_gamma':
+      state.sigma2 = inverseGamma(rng, prior.shape + m / 2, prior.scale + sumSquares / 2);
+      return;
+    case 'half_cauchy': {
+      // σ² | a ~ IG(1/2, 1/a), a ~ IG(1/2, 1/A²) gives σ ~ half-Cauchy(A) (Huang & Wand 2013).
+      state.sigma2 = inverseGamma(rng, (1 + m) / 2, 1 / state.aux + sumSquares / 2);
+      state.aux = inverseGamma(rng, 1, 1 / state.sigma2 + 1 / (prior.scale * prior.scale));
+      return;
+    }
+  }
+}
+
+export function plainAreaKernel(spec: AreaModelSpec): Kernel<PlainState> {
+  const d = pack(spec);
+  const { data, siteSd } = spec;
+  const { p, m, X } = data;
+  const xtx = new Float64Array(p * p);
+  for (let i = 0; i < m; i++)
+    for (let j = 0; j < p; j++)
+      for (let l = 0; l <= j; l++) xtx[j * p + l] += X[i * p + j] * X[i * p + l];
+  return {
+    quantities: areaQuantities(data),
+    init(rng) {
+      const sigma2 = Math.exp(2 * startingLogSigma(d, rng));
+      const state: PlainState = {
+        beta: new Float64Array(p),
+        theta: new Float64Array(m),
+        sigma2,
+        aux: 1 / gamma(rng, 0.5),
+        P: new Float64Array(p * p),
+        b: new Float64Array(p),
+      };
+      for (let i = 0; i < m; i++) state.theta[i] = data.hasData[i] ? data.direct[i] : d.y[0];
+      return state;
+    },
+    step(state, rng) {
+      // β | θ, σ²: regression of θ on X with variance σ².
+      const { P, b, beta, theta } = state;
+      for (let j = 0; j < p * p; j++) P[j] = xtx[j] / state.sigma2;
+      b.fill(0);
+      for (let i = 0; i < m; i++) for (let j = 0; j < p; j++) b[j] += (X[i * p + j] * theta[i]) / state.sigma2;
+      for (let j = 0; j < p; j++) {
+        P[j * p + j] += d.priorPrecision;
+        b[j] += d.priorPrecisionMean;
+      }
+      choleskyLower(P, p);
+      solveLowerInPlace(P, p, b);
+      for (let j = 0; j < p; j++) beta[j] = b[j] + normal(rng);
+      solveUpperTransposedInPlace(P, p, beta);
+      // σ² | θ, β
+      let sumSquares = 0;
+      for (let i = 0; i < m; i++) sumSquares += (theta[i] - linearPredictor(X, p, i, beta)) ** 2;
+      drawSigma2Plain(state, sumSquares, m, siteSd, rng);
+      // θ | β, σ², y
+      drawTheta(theta, data, beta, state.sigma2, rng);
+      return state;
+    },
+    record(state, out, stride, offset) {
+      recordQuantities(state.beta, Math.sqrt(state.sigma2), state.theta, out, stride, offset);
+    },
+  };
+}
+
+export function areaKernel(spec: AreaModelSpec): Kernel<CollapsedState> | Kernel<PlainState> {
+  return spec.method === 'plain' ? plainAreaKernel(spec) : collapsedAreaKernel(spec);
+}

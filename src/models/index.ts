@@ -1,0 +1,16 @@
+/**
+ * The registry of models: a serialisable spec in, a sampling kernel out. Worker threads receive
+ * the spec (plain data and typed arrays) and build their kernel here, so every model kind runs
+ * through the same driver.
+ */
+import type { Kernel } from '../sampler/kernel.js';
+import { areaKernel, type AreaModelSpec } from './area.js';
+
+export type ModelSpec = { kind: 'area' } & AreaModelSpec;
+
+export function buildKernel(spec: ModelSpec): Kernel<unknown> {
+  switch (spec.kind) {
+    case 'area':
+      return areaKernel(spec) as Kernel<unknown>;
+  }
+}

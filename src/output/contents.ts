@@ -1,0 +1,176 @@
+/**
+ * The contents of a run folder, built from the fit's results as text and bytes (no I/O here).
+ * The layout is documented in DEVELOPERS.md ("The run folder").
+ */
+import type { CoefficientPrior, ScalePrior, Settings } from '../config/types.js';
+import type { FileFingerprint } from '../data/types.js';
+import type { QuantitySummary } from '../summaries/posterior.js';
+import { countFlags, type GateResult, type SiteEstimate } from '../summaries/sites.js';
+import { csvText } from './csv.js';
+
+export const RUN_FORMAT = 'shrinkwell-run';
+export const RUN_FORMAT_VERSION = 1;
+
+export const ESTIMATE_COLUMNS = [
+  'site', 'label', 'n', 'direct', 'direct_se', 'direct_cv', 'estimate', 'sd', 'lower', 'upper',
+  'cv', 'weight_direct', 'flag', 'reasons',
+] as const;
+
+export function estimatesCsv(sites: readonly SiteEstimate[]): string {
+  return csvText(
+    ESTIMATE_COLUMNS,
+    sites.map((s) => [
+      s.site, s.label, s.n, s.direct, s.directSe, s.directCv, s.estimate, s.sd, s.lower, s.upper,
+      s.cv, s.weightDirect, s.flag, s.reasons.join('; '),
+    ]),
+  );
+}
+
+const isParameter = (q: QuantitySummary): boolean => !q.name.startsWith('site:');
+
+export function parametersCsv(summaries: readonly QuantitySummary[]): string {
+  return csvText(
+    ['quantity', 'estimate', 'sd', 'lower', 'upper'],
+    summaries.filter(isParameter).map((q) => [q.name, q.mean, q.sd, q.lower, q.upper]),
+  );
+}
+
+export function diagnosticsCsv(summaries: readonly QuantitySummary[]): string {
+  return csvText(
+    ['quantity', 'rhat', 'ess_bulk', 'ess_tail', 'mcse_mean'],
+    summaries.map((q) => [q.name, q.rhat, q.essBulk, q.essTail, q.mcseMean]),
+  );
+}
+
+/** Why each prior: quoted in the report's appendix. */
+export function coefficientPriorNote(prior: CoefficientPrior): string {
+  return prior.kind === 'flat'
+    ? 'Flat (improper uniform) prior on every coefficient, fixed in advance and never learned: ' +
+        'the coefficients are then driven by the data alone, as in the frequentist regression.'
+    : `Normal prior with mean ${prior.mean} and sd ${prior.sd} on every coefficient (intercept included), ` +
+        'fixed in advance and never learned from the data.';
+}
+
+export function scalePriorNote(prior: ScalePrior, what: string): string {
+  switch (prior.kind) {
+    case 'uniform':
+      return `Uniform prior on the ${what} over (0, ∞), learned from the data. Recommended when there are ` +
+        'enough sites to inform the spread (Gelman 2006, Bayesian Analysis 1(3), 515–534); ' +
+        'with very few sites it can overstate the spread, and half-Cauchy is advised instead.';
+    case 'half_cauchy':
+      return `Half-Cauchy prior with scale ${prior.scale} on the ${what}, learned from the data: weakly ` +
+        'informative, nearly flat below the scale with heavy tails above it (Gelman 2006); sampled through ' +
+        'the inverse-gamma mixture of Huang & Wand (2013, Bayesian Analysis 8(2), 439–452).';
+    case 'inverse_gamma':
+      return `Inverse-gamma prior with shape ${prior.shape} and scale ${prior.scale} on the ${what} squared ` +
+        '(the variance), learned from the data. Note that this prior is informative near zero ' +
+        '(Gelman 2006); results can depend on the values chosen.';
+  }
+}
+
+export interface RunResults {
+  settings: Settings;
+  coefficientNames: string[];
+  varianceNote: string;
+  summaries: QuantitySummary[];
+  sites: SiteEstimate[];
+  gate: GateResult;
+  threads: number;
+}
+
+export function summaryJson(r: RunResults): string {
+  const { settings } = r;
+  const counts = countFlags(r.sites);
+  const summary = {
+    format: RUN_FORMAT,
+    format_version: RUN_FORMAT_VERSION,
+    title: settings.title,
+    period: settings.period ?? null,
+    measure: settings.measure,
+    model: {
+      kind: settings.model.kind,
+      coefficients: r.coefficientNames,
+      priors: { coefficients: settings.model.priors.coefficients, site_sd: settings.model.priors.site_sd },
+      prior_notes: {
+        coefficients: coefficientPriorNote(settings.model.priors.coefficients),
+        site_sd: scalePriorNote(settings.model.priors.site_sd, 'between-site standard deviation'),
+      },
+      variance_note: r.varianceNote,
+    },
+    interval: settings.interval,
+    sampling: {
+      chains: settings.sampling.chains,
+      warmup: settings.sampling.warmup,
+      draws: settings.sampling.draws,
+      seed: settings.sampling.seed,
+      method: settings.sampling.method,
+      threads: r.threads,
+    },
+    reliability: settings.reliability,
+    converged: r.gate.converged,
+    gate: {
+      worst_rhat: r.gate.worstRhat,
+      lowest_ess_bulk: r.gate.lowestEssBulk,
+      lowest_ess_tail: r.gate.lowestEssTail,
+      failing: r.gate.failing,
+    },
+    counts: {
+      sites: r.sites.length,
+      sampled: r.sites.filter((s) => s.n !== 0).length,
+      ...counts,
+    },
+  };
+  return JSON.stringify(summary, jsonNumbers, 2) + '\n';
+}
+
+/** JSON has no NaN or Infinity: write null. */
+function jsonNumbers(_key: string, value: unknown): unknown {
+  return typeof value === 'number' && !Number.isFinite(value) ? null : value;
+}
+
+export interface ManifestInput {
+  settings: Settings;
+  version: string;
+  command: string[];
+  configSha256: string;
+  inputs: FileFingerprint[];
+  threads: number;
+  timingsMs: Record<string, number>;
+  createdAt: string;
+}
+
+export function manifestJson(m: ManifestInput): string {
+  const manifest = {
+    tool: 'shrinkwell',
+    version: m.version,
+    node: process.versions.node,
+    platform: `${process.platform}-${process.arch}`,
+    created_at: m.createdAt,
+    command: m.command,
+    config: { path: m.settings.config_path, sha256: m.configSha256 },
+    settings: m.settings,
+    inputs: m.inputs,
+    seed: m.settings.sampling.seed,
+    threads: m.threads,
+    timings_ms: m.timingsMs,
+  };
+  return JSON.stringify(manifest, jsonNumbers, 2) + '\n';
+}
+
+/** Draws as float32, quantity-major then chain then draw (documented in DEVELOPERS.md). */
+export function drawsFiles(
+  names: readonly string[],
+  chains: ReadonlyArray<{ draws: number; values: Float64Array }>,
+): { json: string; bin: Uint8Array } {
+  const C = chains.length;
+  const D = chains[0].draws;
+  const out = new Float32Array(names.length * C * D);
+  for (let q = 0; q < names.length; q++)
+    for (let c = 0; c < C; c++) out.set(chains[c].values.subarray(q * D, (q + 1) * D), (q * C + c) * D);
+  const json = JSON.stringify(
+    { dtype: 'float32', byte_order: 'little', quantities: names, chains: C, draws_per_chain: D },
+    null,
+    2,
+  );
+  return { json: json + '\n', bin: new Uint8Array(out.buffer) };
+}

@@ -1,0 +1,150 @@
+/**
+ * One fit, end to end: config → data → sampler → summaries → run folder. This is an edge (it
+ * reads and writes files and the clock); every stage it calls is a plain function.
+ */
+import { createHash } from 'node:crypto';
+import { readFile } from 'node:fs/promises';
+import { performance } from 'node:perf_hooks';
+import { loadConfig } from '../config/load.js';
+import type { Settings } from '../config/types.js';
+import { loadAreaData } from '../data/area.js';
+import type { AreaData, FileFingerprint } from '../data/types.js';
+import { areaQuantities } from '../models/area.js';
+import { drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
+import { writeRunFolder } from '../output/run-folder.js';
+import { defaultThreads, sampleChains } from '../sampler/parallel.js';
+import { summarizeQuantities, type ChainValues } from '../summaries/posterior.js';
+import { evaluateGate, siteEstimates, type GateResult, type SiteEstimate } from '../summaries/sites.js';
+import { VERSION } from '../version.js';
+
+export interface FitOptions {
+  configPath: string;
+  outDir: string;
+  /** Worker threads (default: min(chains, cores)); the draws do not depend on it. */
+  threads?: number;
+  /** The command line, recorded in the manifest. */
+  command: string[];
+  onWarning?: (message: string) => void;
+  onProgress?: (done: number, total: number) => void;
+}
+
+export interface FitOutcome {
+  runDir: string;
+  converged: boolean;
+  gate: GateResult;
+  sites: SiteEstimate[];
+  settings: Settings;
+  timingsMs: Record<string, number>;
+}
+
+/** Pooled draws of one quantity over all chains. */
+function pooledDraws(chains: readonly ChainValues[], q: number): Float64Array {
+  const D = chains[0].draws;
+  const out = new Float64Array(chains.length * D);
+  chains.forEach((c, k) => out.set(c.values.subarray(q * D, (q + 1) * D), k * D));
+  return out;
+}
+
+async function sha256File(path: string): Promise<string> {
+  return createHash('sha256').update(await readFile(path)).digest('hex');
+}
+
+export async function runFit(options: FitOptions): Promise<FitOutcome> {
+  const clock = performance.now();
+  const lap = (): number => {
+    const now = performance.now();
+    const elapsed = Math.round(now - lastLap);
+    lastLap = now;
+    return elapsed;
+  };
+  let lastLap = clock;
+  const { settings, warnings } = await loadConfig(options.configPath);
+  warnings.forEach((w) => options.onWarning?.(w));
+  const { data, files } = await loadAreaData(settings);
+  const configSha256 = await sha256File(settings.config_path);
+  const timingsMs: Record<string, number> = { read: lap() };
+
+  const { sampling } = settings;
+  const threads = Math.min(options.threads ?? sampling.threads ?? defaultThreads(sampling.chains), sampling.chains);
+  const chains = await sampleChains({
+    spec: {
+      kind: 'area',
+      data,
+      coefficients: settings.model.priors.coefficients,
+      siteSd: settings.model.priors.site_sd,
+      method: sampling.method,
+    },
+    plan: { warmup: sampling.warmup, draws: sampling.draws, seed: sampling.seed },
+    chains: sampling.chains,
+    threads,
+    onProgress: options.onProgress,
+  });
+  timingsMs.sample = lap();
+
+  const names = areaQuantities(data);
+  const summaries = summarizeQuantities(chains, names, settings.interval);
+  const byName = new Map(summaries.map((s) => [s.name, s]));
+  const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
+  const sites = siteEstimates(data, byName, pooledDraws(chains, names.indexOf('site_sd')), settings, gate);
+  timingsMs.summarize = lap();
+
+  const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, data, files, {
+    names, chains, summaries, sites, gate, threads, configSha256, command: options.command, timingsMs,
+  }));
+  timingsMs.write = lap();
+  timingsMs.total = Math.round(performance.now() - clock);
+  return { runDir, converged: gate.converged, gate, sites, settings, timingsMs };
+}
+
+interface FitProducts {
+  names: string[];
+  chains: ChainValues[];
+  summaries: ReturnType<typeof summarizeQuantities>;
+  sites: SiteEstimate[];
+  gate: GateResult;
+  threads: number;
+  configSha256: string;
+  command: string[];
+  timingsMs: Record<string, number>;
+}
+
+function runFolderFiles(
+  settings: Settings,
+  data: AreaData,
+  inputs: FileFingerprint[],
+  r: FitProducts,
+): Map<string, string | Uint8Array> {
+  const draws = drawsFiles(r.names, r.chains);
+  return new Map<string, string | Uint8Array>([
+    ['estimates.csv', estimatesCsv(r.sites)],
+    ['parameters.csv', parametersCsv(r.summaries)],
+    ['diagnostics.csv', diagnosticsCsv(r.summaries)],
+    [
+      'summary.json',
+      summaryJson({
+        settings,
+        coefficientNames: data.coefficientNames,
+        varianceNote: data.varianceNote,
+        summaries: r.summaries,
+        sites: r.sites,
+        gate: r.gate,
+        threads: r.threads,
+      }),
+    ],
+    [
+      'manifest.json',
+      manifestJson({
+        settings,
+        version: VERSION,
+        command: r.command,
+        configSha256: r.configSha256,
+        inputs,
+        threads: r.threads,
+        timingsMs: r.timingsMs,
+        createdAt: new Date().toISOString(),
+      }),
+    ],
+    ['draws.json', draws.json],
+    ['draws.bin', draws.bin],
+  ]);
+}

@@ -1,0 +1,147 @@
+/**
+ * Small SVG writing helpers shared by the charts: escaping, element strings, axes drawn from a
+ * d3-scale's own ticks and tick format, the palette and the fill patterns.
+ *
+ * Every text or attribute value passes through `esc`, so site names with markup stay text.
+ */
+import type { ScaleContinuousNumeric } from 'd3-scale';
+
+/** Escapes text for use in SVG/HTML text and double-quoted attributes. */
+export function esc(text: string): string {
+  return text
+    .replace(/&/g, '&amp;')
+    .replace(/</g, '&lt;')
+    .replace(/>/g, '&gt;')
+    .replace(/"/g, '&quot;')
+    .replace(/'/g, '&#39;');
+}
+
+/** A coordinate rounded to 0.01 so the SVG is compact and deterministic (no "-0"). */
+export function num(value: number): string {
+  const rounded = Math.round(value * 100) / 100;
+  return Object.is(rounded, -0) ? '0' : String(rounded);
+}
+
+type AttrValue = string | number | null | undefined;
+
+/** One SVG element as a string; attributes with null/undefined values are left out. */
+export function el(tag: string, attrs: Record<string, AttrValue>, children?: string): string {
+  const parts = Object.entries(attrs)
+    .filter(([, v]) => v !== null && v !== undefined)
+    .map(([k, v]) => ` ${k}="${typeof v === 'number' ? num(v) : esc(v as string)}"`)
+    .join('');
+  return children === undefined ? `<${tag}${parts}/>` : `<${tag}${parts}>${children}</${tag}>`;
+}
+
+/** A text element; `content` is escaped here. */
+export function text(x: number, y: number, content: string, attrs: Record<string, AttrValue> = {}): string {
+  return el('text', { x, y, ...attrs }, esc(content));
+}
+
+/** The outer <svg> with a viewBox, scaled to the column width by CSS, with a title for readers. */
+export function svgRoot(width: number, height: number, title: string, body: string, className = 'chart'): string {
+  return (
+    `<svg xmlns="http://www.w3.org/2000/svg" class="${esc(className)}" viewBox="0 0 ${num(width)} ${num(height)}" ` +
+    `width="${num(width)}" height="${num(height)}" role="img" aria-label="${esc(title)}">` +
+    el('title', {}, esc(title)) +
+    body +
+    '</svg>'
+  );
+}
+
+/** The report's own palette: one hue family per role, with lightness carrying the meaning. */
+export const PALETTE = {
+  ink: '#1f2328',
+  muted: '#6b6f76',
+  grid: '#e3e1dc',
+  axis: '#8a8d92',
+  /** Model estimates: dark slate, filled marks. */
+  model: '#23374d',
+  /** Survey means: warm mid-tone, open marks and thick pale bars. */
+  survey: '#b0622a',
+  surveyBar: '#ecc9a8',
+  /** Suppressed figures: light neutral grey with a hatch. */
+  suppressed: '#b9b9b9',
+  /** Sequential single-hue ramp for estimate classes, light → dark (reads the same in grey). */
+  ramp: ['#f0f3e4', '#cfdcae', '#a2bb78', '#6e8f49', '#3e5a28'],
+  /** Weight on own data, light (synthetic) → dark (own data). */
+  weightRamp: ['#d9d4ea', '#aea4cf', '#8173b0', '#574a8d', '#30265f'],
+  /** Flags: light / mid + diagonal hatch / dark + cross hatch. */
+  flag: { publish: '#f6f2e4', caution: '#e2ad4e', suppress: '#3f3a4b' },
+  /** Chains in trace plots: distinct in lightness as well as hue. */
+  chains: ['#1d3b5a', '#d08a3c', '#7fa9c9', '#8c3b5e', '#4f7a3a', '#c9b458'],
+} as const;
+
+/** <defs> with the hatch patterns used for flags and suppressed figures; ids are prefixed. */
+export function patternDefs(prefix: string): string {
+  const hatch = (id: string, background: string, stroke: string, cross: boolean, gap = 5) =>
+    el(
+      'pattern',
+      { id: `${prefix}-${id}`, width: gap, height: gap, patternUnits: 'userSpaceOnUse', patternTransform: 'rotate(45)' },
+      el('rect', { width: gap, height: gap, fill: background }) +
+        el('line', { x1: 0, y1: 0, x2: 0, y2: gap, stroke, 'stroke-width': 1.4 }) +
+        (cross ? el('line', { x1: 0, y1: gap / 2, x2: gap, y2: gap / 2, stroke, 'stroke-width': 1.4 }) : ''),
+    );
+  return el(
+    'defs',
+    {},
+    hatch('caution', PALETTE.flag.caution, '#7a5512', false) +
+      hatch('suppress', PALETTE.flag.suppress, '#d8d4e2', true) +
+      hatch('suppressed', '#ffffff', PALETTE.suppressed, false, 4),
+  );
+}
+
+interface AxisOptions {
+  /** Pixel position of the axis line (y for a bottom axis, x for a left axis). */
+  at: number;
+  /** Extent of the grid lines across the plot (from, to). */
+  grid?: [number, number];
+  ticks?: number;
+  format?: (value: number) => string;
+  label?: string;
+  labelOffset?: number;
+}
+
+/** A horizontal axis from the scale's ticks; optional vertical grid lines. */
+export function axisBottom(scale: ScaleContinuousNumeric<number, number>, options: AxisOptions): string {
+  const count = options.ticks ?? 6;
+  const format = options.format ?? scale.tickFormat(count);
+  const [r0, r1] = scale.range();
+  let out = el('line', { x1: r0, x2: r1, y1: options.at, y2: options.at, stroke: PALETTE.axis, 'stroke-width': 0.8 });
+  for (const tick of scale.ticks(count)) {
+    const x = scale(tick);
+    if (options.grid) out += el('line', { x1: x, x2: x, y1: options.grid[0], y2: options.grid[1], stroke: PALETTE.grid, 'stroke-width': 0.6 });
+    out += el('line', { x1: x, x2: x, y1: options.at, y2: options.at + 4, stroke: PALETTE.axis, 'stroke-width': 0.8 });
+    out += text(x, options.at + 14, format(tick), { 'text-anchor': 'middle', class: 'tick' });
+  }
+  if (options.label) {
+    out += text((r0 + r1) / 2, options.at + (options.labelOffset ?? 30), options.label, { 'text-anchor': 'middle', class: 'axis-label' });
+  }
+  return out;
+}
+
+/** A vertical axis from the scale's ticks; optional horizontal grid lines. */
+export function axisLeft(scale: ScaleContinuousNumeric<number, number>, options: AxisOptions): string {
+  const count = options.ticks ?? 5;
+  const format = options.format ?? scale.tickFormat(count);
+  const [r0, r1] = scale.range();
+  let out = el('line', { x1: options.at, x2: options.at, y1: r0, y2: r1, stroke: PALETTE.axis, 'stroke-width': 0.8 });
+  for (const tick of scale.ticks(count)) {
+    const y = scale(tick);
+    if (options.grid) out += el('line', { x1: options.grid[0], x2: options.grid[1], y1: y, y2: y, stroke: PALETTE.grid, 'stroke-width': 0.6 });
+    out += el('line', { x1: options.at - 4, x2: options.at, y1: y, y2: y, stroke: PALETTE.axis, 'stroke-width': 0.8 });
+    out += text(options.at - 6, y + 3.5, format(tick), { 'text-anchor': 'end', class: 'tick' });
+  }
+  if (options.label) {
+    const x = options.at - (options.labelOffset ?? 36);
+    const y = (r0 + r1) / 2;
+    out += text(x, y, options.label, { 'text-anchor': 'middle', class: 'axis-label', transform: `rotate(-90 ${num(x)} ${num(y)})` });
+  }
+  return out;
+}
+
+/** Shortens a label to `max` characters with an ellipsis (SVG has no text wrapping). */
+export function clip(label: string, max: number): string {
+  const chars = Array.from(label);
+  return chars.length <= max ? label : `${chars.slice(0, max - 1).join('')}…`;
+}
