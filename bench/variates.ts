@@ -1,12 +1,16 @@
 /**
  * Micro-benchmark: nanoseconds per variate for the seeded generator and the variate functions.
  * Not a test; speed targets live here. Run after `npm run build` with
- * `node dist/bench/variates.js`.
+ * `node dist/bench/variates.js` (all cases) or `node dist/bench/variates.js CASE_NUMBER`.
+ * Each case runs in its own Node process so that call sites stay monomorphic and one case's
+ * compiled code does not slow another's.
  *
  * Also times the Marsaglia polar method (Marsaglia & Bray 1964) in two forms — discarding the
  * second value of each pair, and caching it in a closure — as the comparison behind the choice of
  * the ziggurat in src/sampler/variates.ts.
  */
+import { execFileSync } from 'node:child_process';
+import { fileURLToPath } from 'node:url';
 import { createRng, type Rng } from '../src/sampler/rng.js';
 import { gamma, inverseGamma, normal } from '../src/sampler/variates.js';
 
@@ -59,25 +63,35 @@ function polarCached(rng: Rng): () => number {
   };
 }
 
-function main(): void {
+function benchCases(): Array<[string, () => number]> {
   const rng = createRng(20261201, 0);
-  const cached = polarCached(rng);
-  const cases: Array<[string, () => number]> = [
+  return [
     ['nextU32', () => rng.nextU32()],
     ['uniform', () => rng.uniform()],
     ['normal (ziggurat, 256 layers)', () => normal(rng)],
     ['normal (polar, discard pair)', () => polarDiscard(rng)],
-    ['normal (polar, cached pair)', cached],
+    ['normal (polar, cached pair)', polarCached(rng)],
     ['gamma shape 0.3', () => gamma(rng, 0.3)],
     ['gamma shape 1', () => gamma(rng, 1)],
     ['gamma shape 2.5', () => gamma(rng, 2.5)],
     ['gamma shape 40', () => gamma(rng, 40)],
     ['inverseGamma shape 3, scale 2', () => inverseGamma(rng, 3, 2)],
   ];
-  console.log(`ns per variate, best of ${REPEATS} runs of ${DRAWS} draws (node ${process.version})`);
-  for (const [name, draw] of cases) {
+}
+
+function main(): void {
+  const cases = benchCases();
+  const which = process.argv[2];
+  if (which !== undefined) {
+    const [name, draw] = cases[Number(which)];
     const { ns, checksum } = nsPerCall(draw);
     console.log(`${name.padEnd(32)} ${ns.toFixed(2).padStart(7)} ns   (checksum ${checksum.toExponential(3)})`);
+    return;
+  }
+  console.log(`ns per variate, best of ${REPEATS} runs of ${DRAWS} draws (node ${process.version})`);
+  const self = fileURLToPath(import.meta.url);
+  for (let index = 0; index < cases.length; index++) {
+    process.stdout.write(execFileSync(process.execPath, [self, String(index)], { encoding: 'utf8' }));
   }
 }
 

@@ -62,10 +62,15 @@ function varianceFrom(model: Model): VarianceFrom {
   return model.variance !== undefined ? 'column' : 'sd';
 }
 
+/** "an area model", "a unit model", "a counts model". */
+function aModel(kind: ModelKind): string {
+  return `${kind === 'area' ? 'an' : 'a'} ${kind} model`;
+}
+
 /** Keys each model kind must have, with why. */
 function requiredForKind(config: ConfigParsed): Problem[] {
   const { model } = config;
-  const missing = (path: string[], why: string): Problem => ({ path, message: `required for a ${model.kind} model: ${why}` });
+  const missing = (path: string[], why: string): Problem => ({ path, message: `required for ${aModel(model.kind)}: ${why}` });
   const problems: Problem[] = [];
   if (model.kind === 'area') {
     if (model.direct === undefined) problems.push(missing(['model', 'direct'], "the column holding each site's direct estimate"));
@@ -132,7 +137,7 @@ export function configWarnings(config: ConfigParsed, raw: unknown): string[] {
   }
   const kind = config.model.kind;
   for (const path of IGNORED_BY_KIND[kind]) {
-    if (isGiven(raw, path)) warnings.push(`${path.join('.')} is not used by a ${kind} model and is ignored`);
+    if (isGiven(raw, path)) warnings.push(`${path.join('.')} is not used by ${aModel(kind)} and is ignored`);
   }
   if (kind === 'area' && varianceFrom(config.model) === 'column' && isGiven(raw, ['model', 'design_effect'])) {
     warnings.push('model.design_effect is ignored when the sampling variance is read from a column (model.variance); that column should already include the design effect');

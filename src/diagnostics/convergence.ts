@@ -16,6 +16,7 @@
  */
 import { AutocovarianceSums } from './autocovariance.js';
 import { normalQuantile } from './normal-quantile.js';
+import { SortOrder } from './sort-order.js';
 
 /** Diagnostics of one monitored quantity. NaN where the estimator is undefined (constant or non-finite draws). */
 export interface QuantityDiagnostics {
@@ -61,11 +62,9 @@ export class DiagnosticsScratch {
   readonly splitTotal: number;
 
   readonly raw: Float64Array;
-  readonly sorted: Float64Array;
+  readonly sortOrder: SortOrder;
   readonly sortedAll: Float64Array;
   readonly middles: Float64Array;
-  readonly bulkScoreAtRank: Float64Array;
-  readonly tailScoreAtRank: Float64Array;
   readonly folded: Float64Array;
   readonly foldedSource: Int32Array;
   readonly zBulk: Float64Array;
@@ -90,11 +89,9 @@ export class DiagnosticsScratch {
     const s = this.splitTotal;
     const oddLength = split && nDraws % 2 === 1;
     this.raw = new Float64Array(s);
-    this.sorted = new Float64Array(s);
-    this.sortedAll = oddLength ? new Float64Array(nChains * nDraws) : this.sorted;
+    this.sortOrder = new SortOrder(s);
+    this.sortedAll = oddLength ? new Float64Array(nChains * nDraws) : this.sortOrder.sorted;
     this.middles = new Float64Array(oddLength ? nChains : 0);
-    this.bulkScoreAtRank = new Float64Array(s);
-    this.tailScoreAtRank = new Float64Array(s);
     this.folded = new Float64Array(s);
     this.foldedSource = new Int32Array(s);
     this.zBulk = new Float64Array(s);
@@ -143,8 +140,9 @@ export function createScratch(nChains: number, nDraws: number, options?: Scratch
  *  - mcseMean = sd(x) / sqrt(ESS(split(x))) — as posterior::mcse_mean: the sd of all draws over the
  *    ESS of the raw draws, because the MCSE of the mean concerns the mean of x itself, not of its ranks.
  * z(.) are the Blom normal scores of the average ranks pooled over all split chains; q05 and q95 are
- * type-7 sample quantiles of all draws. One typed-array sort per call; no allocations when a
- * matching scratch is passed.
+ * type-7 sample quantiles of all draws. One O(S) radix sort per call (see sort-order.ts), ranks
+ * read off the permutation, the folded order by a merge; no allocations when a matching scratch
+ * is passed.
  *
  * @param chains chains[k] = draws of chain k after warm-up, all of equal length
  * @param scratch buffers from {@link createScratch} for this shape (allocated when omitted)
@@ -180,9 +178,10 @@ export function diagnoseQuantity(chains: readonly Float64Array[], scratch?: Diag
     }
   }
 
-  const sorted = sc.sorted;
-  sorted.set(raw);
-  sorted.sort();
+  // Sorting permutation of the split draws: ranks come from it directly.
+  sc.sortOrder.compute(raw, s);
+  const order = sc.sortOrder.order;
+  const sorted = sc.sortOrder.sorted;
   // Median and quantiles use all draws, the middle ones included (posterior folds and takes
   // quantiles before splitting).
   let sortedAll = sorted;
@@ -190,30 +189,25 @@ export function diagnoseQuantity(chains: readonly Float64Array[], scratch?: Diag
     const mid = (n - 1) / 2;
     for (let k = 0; k < m; k++) sc.middles[k] = chains[k][mid];
     sc.middles.sort();
-    mergeSorted(sorted, sc.middles, sc.sortedAll);
+    mergeSorted(sorted, s, sc.middles, sc.sortedAll);
     sortedAll = sc.sortedAll;
   }
-  const median = sortedMedian(sortedAll);
-  const q05 = sortedQuantileType7(sortedAll, 0.05);
-  const q95 = sortedQuantileType7(sortedAll, 0.95);
+  const median = sortedMedian(sortedAll, total);
+  const q05 = sortedQuantileType7(sortedAll, total, 0.05);
+  const q95 = sortedQuantileType7(sortedAll, total, 0.95);
   const allConstant = isConstantRange(sortedAll[0], sortedAll[total - 1]);
 
-  // Normal scores by position in the sorted split draws (the first position of each tie group).
-  scoreTieGroups(sorted, s, sc.blom, sc.bulkScoreAtRank, null);
-  foldSorted(sorted, median, sc.folded, sc.foldedSource);
-  scoreTieGroups(sc.folded, s, sc.blom, sc.tailScoreAtRank, sc.foldedSource);
-
+  // Rank-normalized draws (bulk) and rank-normalized folded draws (tail), in split layout.
   const zBulk = sc.zBulk;
   const zTail = sc.zTail;
+  scoreTieGroups(sorted, s, sc.blom, zBulk, order, null);
+  foldSorted(sorted, s, median, sc.folded, sc.foldedSource);
+  scoreTieGroups(sc.folded, s, sc.blom, zTail, order, sc.foldedSource);
+
   const i05 = sc.indicator05;
   const i95 = sc.indicator95;
-  const bulkAt = sc.bulkScoreAtRank;
-  const tailAt = sc.tailScoreAtRank;
   for (let i = 0; i < s; i++) {
     const v = raw[i];
-    const p = lowerBound(sorted, s, v);
-    zBulk[i] = bulkAt[p];
-    zTail[i] = tailAt[p];
     i05[i] = v <= q05 ? 1 : 0;
     i95[i] = v <= q95 ? 1 : 0;
   }
@@ -254,25 +248,23 @@ export function splitChains(chains: readonly Float64Array[]): Float64Array[] {
 /**
  * Rank-normalize draws pooled over all chains (posterior's z_scale): average ranks r among all S
  * draws (ties averaged), then z = Phi^{-1}((r - 3/8) / (S - 2·3/8 + 1)) (Blom 1958 scores, as in
- * Vehtari et al. 2021, sec. 4.1). Returns arrays of the input's shape.
+ * Vehtari et al. 2021, sec. 4.1). Returns arrays of the input's shape. Draws must be finite.
  */
 export function rankNormalize(chains: readonly Float64Array[]): Float64Array[] {
   const flat = flatten(chains);
   const s = flat.length;
-  const sorted = flat.slice().sort();
   const blom = new Float64Array(s + 1);
   const denominator = s - 2 * BLOM_OFFSET + 1;
   for (let r = 1; r <= s; r++) blom[r] = normalQuantile((r - BLOM_OFFSET) / denominator);
-  const scoreAt = new Float64Array(s);
-  scoreTieGroups(sorted, s, blom, scoreAt, null);
+  const sortOrder = new SortOrder(s);
+  sortOrder.compute(flat, s);
+  const z = new Float64Array(s);
+  scoreTieGroups(sortOrder.sorted, s, blom, z, sortOrder.order, null);
   const out: Float64Array[] = [];
+  let offset = 0;
   for (const chain of chains) {
-    const z = new Float64Array(chain.length);
-    for (let i = 0; i < chain.length; i++) {
-      const v = chain[i];
-      z[i] = Number.isNaN(v) ? Number.NaN : scoreAt[lowerBound(sorted, s, v)];
-    }
-    out.push(z);
+    out.push(z.slice(offset, offset + chain.length));
+    offset += chain.length;
   }
   return out;
 }
@@ -430,16 +422,18 @@ function lowerBound(sorted: Float64Array, len: number, value: number): number {
 }
 
 /**
- * Walk the tie groups of sorted[0..len): a group at positions [a, b) has average rank (a+1+b)/2.
- * Without `source`, the score is stored at the group's first position (what lowerBound finds);
- * with `source`, at source[k] for every k in the group.
+ * Walk the tie groups of sorted[0..len): the group at positions [a, b) has average rank
+ * (a+1+b)/2 and Blom score z. Writes z to target[order[p]] for every p in the group, or, with
+ * `through`, to target[order[through[k]]] for every k in the group (sorted[k] is then a derived
+ * sequence whose k-th entry comes from position through[k] of the sorting permutation).
  */
 function scoreTieGroups(
   sorted: Float64Array,
   len: number,
   blom: Float64Array,
-  scoreAt: Float64Array,
-  source: Int32Array | null,
+  target: Float64Array,
+  order: Int32Array,
+  through: Int32Array | null,
 ): void {
   const denominator = len - 2 * BLOM_OFFSET + 1;
   let a = 0;
@@ -451,8 +445,8 @@ function scoreTieGroups(
     // Odd group size gives an integer average rank, whose score is tabulated.
     const score =
       (rankTwice & 1) === 0 ? blom[rankTwice >>> 1] : normalQuantile((rankTwice / 2 - BLOM_OFFSET) / denominator);
-    if (source === null) scoreAt[a] = score;
-    else for (let k = a; k < b; k++) scoreAt[source[k]] = score;
+    if (through === null) for (let k = a; k < b; k++) target[order[k]] = score;
+    else for (let k = a; k < b; k++) target[order[through[k]]] = score;
     a = b;
   }
 }
@@ -462,8 +456,7 @@ function scoreTieGroups(
  * read downwards, and those at or above it, read upwards, are each already in order, so a merge
  * suffices. `source[k]` is the position in `sorted` of the k-th folded value.
  */
-function foldSorted(sorted: Float64Array, median: number, folded: Float64Array, source: Int32Array): void {
-  const len = sorted.length;
+function foldSorted(sorted: Float64Array, len: number, median: number, folded: Float64Array, source: Int32Array): void {
   const split = lowerBound(sorted, len, median);
   let below = split - 1;
   let above = split;
@@ -489,25 +482,24 @@ function foldSorted(sorted: Float64Array, median: number, folded: Float64Array, 
   }
 }
 
-function mergeSorted(a: Float64Array, b: Float64Array, out: Float64Array): void {
+function mergeSorted(a: Float64Array, aLength: number, b: Float64Array, out: Float64Array): void {
   let i = 0;
   let j = 0;
   let k = 0;
-  while (i < a.length && j < b.length) out[k++] = a[i] <= b[j] ? a[i++] : b[j++];
-  while (i < a.length) out[k++] = a[i++];
+  while (i < aLength && j < b.length) out[k++] = a[i] <= b[j] ? a[i++] : b[j++];
+  while (i < aLength) out[k++] = a[i++];
   while (j < b.length) out[k++] = b[j++];
 }
 
 /** Median as R's median(): middle value, or the mean of the two middle values. */
-function sortedMedian(sorted: Float64Array): number {
-  const len = sorted.length;
+function sortedMedian(sorted: Float64Array, len: number): number {
   const half = len >>> 1;
   return len % 2 === 1 ? sorted[half] : (sorted[half - 1] + sorted[half]) / 2;
 }
 
 /** Sample quantile of type 7 (Hyndman & Fan 1996), written as R's quantile.default computes it. */
-function sortedQuantileType7(sorted: Float64Array, prob: number): number {
-  const index = 1 + (sorted.length - 1) * prob;
+function sortedQuantileType7(sorted: Float64Array, len: number, prob: number): number {
+  const index = 1 + (len - 1) * prob;
   const lo = Math.floor(index);
   const hi = Math.ceil(index);
   const atLo = sorted[lo - 1];

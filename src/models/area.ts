@@ -57,6 +57,13 @@ interface Packed {
   X: Float64Array; // n × p
   y: Float64Array;
   psi: Float64Array;
+  /**
+   * Per sampled site, the terms of the marginal's sufficient statistics, one row of `width`:
+   * the lower triangle of x xᵀ (p(p+1)/2 values), then x·y (p values), then y². The marginal
+   * of σ² is then one weighted sum of these rows.
+   */
+  terms: Float64Array;
+  width: number;
   /** Position of each sampled site among all sites. */
   index: Int32Array;
   /** Prior precision on each coefficient (0 for flat) and precision × mean. */
@@ -64,6 +71,19 @@ interface Packed {
   priorPrecisionMean: number;
   /** b0ᵀS⁻¹b0 summed over coefficients. */
   priorQuad: number;
+}
+
+function outerProductTerms(X: Float64Array, y: Float64Array, n: number, p: number): Float64Array {
+  const width = (p * (p + 1)) / 2 + p + 1;
+  const terms = new Float64Array(n * width);
+  for (let k = 0; k < n; k++) {
+    let c = k * width;
+    const row = k * p;
+    for (let j = 0; j < p; j++) for (let l = 0; l <= j; l++) terms[c++] = X[row + j] * X[row + l];
+    for (let j = 0; j < p; j++) terms[c++] = X[row + j] * y[k];
+    terms[c] = y[k] * y[k];
+  }
+  return terms;
 }
 
 function pack(spec: AreaModelSpec): Packed {
@@ -89,6 +109,8 @@ function pack(spec: AreaModelSpec): Packed {
     X,
     y,
     psi,
+    terms: outerProductTerms(X, y, n, p),
+    width: (p * (p + 1)) / 2 + p + 1,
     index: Int32Array.from(index),
     priorPrecision: precision,
     priorPrecisionMean: precision * mean,
@@ -116,36 +138,46 @@ export function logPriorLogSigma(t: number, prior: ScalePrior): number {
 
 /** Work buffers for the marginal of σ², reused across evaluations. */
 interface MarginalWork {
+  sums: Float64Array; // weighted sums of the packed terms
   P: Float64Array; // p × p, then its Cholesky factor (lower)
   v: Float64Array; // b, then L⁻¹b
 }
+
+function createMarginalWork(d: Packed): MarginalWork {
+  return { sums: new Float64Array(d.width), P: new Float64Array(d.p * d.p), v: new Float64Array(d.p) };
+}
+
+/** Sites whose variances are multiplied together before one logarithm (keeps products in range). */
+const LOG_BLOCK = 8;
 
 /**
  * log p(t = log σ | y) up to a constant, leaving the Cholesky factor of P and L⁻¹b in `work`
  * so the caller can draw β at the same σ without another pass over the sites.
  */
 function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: MarginalWork): number {
-  const { p, n, X, y, psi } = d;
+  const { p, n, psi, terms, width } = d;
   const s2 = Math.exp(2 * t);
-  const P = work.P;
-  const b = work.v;
-  P.fill(0);
-  b.fill(0);
+  const sums = work.sums;
+  sums.fill(0);
   let logDetV = 0;
-  let ywy = 0;
+  let product = 1;
   for (let k = 0; k < n; k++) {
     const varTotal = s2 + psi[k];
     const w = 1 / varTotal;
-    logDetV += Math.log(varTotal);
-    const yk = y[k];
-    ywy += w * yk * yk;
-    const row = k * p;
-    for (let j = 0; j < p; j++) {
-      const wx = w * X[row + j];
-      b[j] += wx * yk;
-      for (let l = 0; l <= j; l++) P[j * p + l] += wx * X[row + l];
+    product *= varTotal;
+    if ((k + 1) % LOG_BLOCK === 0) {
+      logDetV += Math.log(product);
+      product = 1;
     }
+    const row = k * width;
+    for (let c = 0; c < width; c++) sums[c] += w * terms[row + c];
   }
+  logDetV += Math.log(product);
+  const { P, v: b } = work;
+  let c = 0;
+  for (let j = 0; j < p; j++) for (let l = 0; l <= j; l++) P[j * p + l] = sums[c++];
+  for (let j = 0; j < p; j++) b[j] = sums[c++];
+  const ywy = sums[c];
   for (let j = 0; j < p; j++) {
     P[j * p + j] += d.priorPrecision;
     b[j] += d.priorPrecisionMean;
@@ -286,7 +318,7 @@ export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState>
   return {
     quantities: areaQuantities(data),
     init(rng) {
-      const work = { P: new Float64Array(p * p), v: new Float64Array(p) };
+      const work = createMarginalWork(d);
       const logSigma = startingLogSigma(d, rng);
       return {
         logSigma,

@@ -7,7 +7,7 @@
 import { scaleLinear, scaleSqrt, scaleQuantize } from 'd3-scale';
 import { symbol, symbolTriangle, symbolCross } from 'd3-shape';
 import type { Flag } from './read-run.js';
-import { PALETTE, axisBottom, axisLeft, clip, el, num, patternDefs, svgRoot, text } from './svg.js';
+import { HATCH, PALETTE, axisBottom, axisLeft, clip, el, hatchedShape, num, rectPath, svgRoot, text } from './svg.js';
 
 export interface ChartSite {
   id: string;
@@ -58,7 +58,7 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
   const sorted = [...sites].sort((a, b) => a.estimate - b.estimate || (a.id < b.id ? -1 : 1));
   const domain = extent(finite(sorted.flatMap((s) => [s.lower, s.upper, s.directLower, s.directUpper])));
   const left = 168;
-  const right = 78;
+  const right = 112;
   const x = scaleLinear().domain(domain).nice().range([left, WIDTH - right]);
   const rowHeight = 13;
   const top = 34;
@@ -68,8 +68,7 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
     const plotBottom = top + chunk.length * rowHeight;
     const height = plotBottom + 40;
     const id = `${opts.prefix ?? 'iv'}${start / SITES_PER_PANEL}`;
-    let body = patternDefs(id);
-    body += axisBottom(x, { at: plotBottom + 4, grid: [top - 4, plotBottom + 4], label: `${opts.level} interval (${opts.unit})`, labelOffset: 32 });
+    let body = axisBottom(x, { at: plotBottom + 4, grid: [top - 4, plotBottom + 4], label: `${opts.level} interval (${opts.unit})`, labelOffset: 32 });
     chunk.forEach((site, i) => {
       const y = top + i * rowHeight + rowHeight / 2;
       if (i % 2 === 1) body += el('rect', { x: 4, y: y - rowHeight / 2, width: WIDTH - 8, height: rowHeight, fill: '#f6f5f1' });
@@ -83,10 +82,9 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
       }
       // Model: a thin dark line with a filled dot; suppressed sites get a hatched bar, no dot.
       if (suppressed) {
-        body += el('rect', {
-          x: x(site.lower), y: y + 0.5, width: Math.max(1, x(site.upper) - x(site.lower)), height: 4,
-          fill: `url(#${id}-suppressed)`, stroke: PALETTE.muted, 'stroke-width': 0.5,
-        });
+        const x0 = x(site.lower);
+        const x1 = Math.max(x0 + 1, x(site.upper));
+        body += hatchedShape(`${id}-s${start + i}`, rectPath(x0, y + 0.5, x1 - x0, 4), [x0, y + 0.5, x1, y + 4.5], HATCH.suppressed, { stroke: PALETTE.muted, width: 0.5 });
       } else {
         body += el('line', { x1: x(site.lower), x2: x(site.upper), y1: y + 2.5, y2: y + 2.5, stroke: PALETTE.model, 'stroke-width': 1.4 });
         body += el('circle', { cx: x(site.estimate), cy: y + 2.5, r: 2.4, fill: PALETTE.model });
@@ -95,14 +93,14 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
       body += text(WIDTH - right + 6, y + 3.5, site.n === 0 ? 'n 0' : `n ${site.n}`, { class: 'row-n' });
       if (notes) body += text(WIDTH - right + 30, y + 3.5, notes, { class: 'row-note' });
     });
-    body += legendItem(left, 12,
+    body += legendItem(12, 12,
       el('line', { x1: -6, x2: 8, y1: 0, y2: 0, stroke: PALETTE.surveyBar, 'stroke-width': 4 }) + el('circle', { cx: 1, cy: 0, r: 2.6, fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1.2 }),
       'Survey mean and its interval');
-    body += legendItem(left + 190, 12,
+    body += legendItem(200, 12,
       el('line', { x1: -6, x2: 8, y1: 0, y2: 0, stroke: PALETTE.model, 'stroke-width': 1.4 }) + el('circle', { cx: 1, cy: 0, r: 2.4, fill: PALETTE.model }),
       'Model estimate and its credible interval');
-    body += legendItem(left + 410, 12,
-      el('rect', { x: -6, y: -2, width: 14, height: 4, fill: `url(#${id}-suppressed)`, stroke: PALETTE.muted, 'stroke-width': 0.5 }),
+    body += legendItem(430, 12,
+      hatchedShape(`${id}-legend`, rectPath(-6, -2, 14, 4), [-6, -2, 8, 2], HATCH.suppressed, { stroke: PALETTE.muted, width: 0.5 }),
       'Suppressed (interval only)');
     panels.push(svgRoot(WIDTH, height, `Survey and model intervals per site, panel ${start / SITES_PER_PANEL + 1}`, body));
   }
@@ -122,9 +120,7 @@ export function shrinkageChart(sites: ChartSite[], opts: { unit: string; prefix?
   const domain = extent(finite(sites.flatMap((s) => [s.direct, s.estimate])));
   const x = scaleLinear().domain(domain).nice().range([left + 90, WIDTH - right]);
   const weightClass = scaleQuantize<string>().domain([0, 1]).range([...PALETTE.weightRamp]);
-  const id = opts.prefix ?? 'sh';
-  let body = patternDefs(id);
-  body += text(left, topY + 4, 'Survey mean', { class: 'axis-label' });
+  let body = text(left, topY + 4, 'Survey mean', { class: 'axis-label' });
   body += text(left, bottomY + 4, 'Model estimate', { class: 'axis-label' });
   body += el('line', { x1: x.range()[0], x2: x.range()[1], y1: topY, y2: topY, stroke: PALETTE.axis, 'stroke-width': 0.8 });
   body += axisBottom(x, { at: bottomY, label: opts.unit, labelOffset: 30 });
@@ -165,7 +161,7 @@ export function cvChart(sites: ChartSite[], opts: { cvCaution: number; cvSuppres
   const left = 56;
   const right = 130;
   const top = 30;
-  const bottom = 230;
+  const bottom = 232;
   const allCv = finite(sites.flatMap((s) => [s.directCv, s.cv]));
   const cap = Math.max(opts.cvSuppress * 1.3, Math.min(1, Math.max(...allCv, 0)));
   const y = scaleLinear().domain([0, cap]).nice().range([bottom, top]);
@@ -205,10 +201,10 @@ export function cvChart(sites: ChartSite[], opts: { cvCaution: number; cvSuppres
     }
   }
   let legend = legendItem(0, 0, el('circle', { cx: 0, cy: 0, r: 2.7, fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1.1 }), 'Survey mean');
-  legend += legendItem(0, 16, el('circle', { cx: 0, cy: 0, r: 2.4, fill: PALETTE.model }), 'Model estimate');
-  legend += legendItem(0, 32, el('path', { d: symbolPath(symbolCross, 30), transform: 'rotate(45)', fill: PALETTE.model }), 'Model, suppressed');
-  legend += legendItem(0, 48, el('path', { d: symbolPath(symbolTriangle, 34), fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1 }), `above ${Math.round(yMax * 100)}%`);
-  body += el('g', { transform: `translate(${WIDTH - right + 12} ${bottom - 70})` }, legend);
+  legend += legendItem(96, 0, el('circle', { cx: 0, cy: 0, r: 2.4, fill: PALETTE.model }), 'Model estimate');
+  legend += legendItem(206, 0, el('path', { d: symbolPath(symbolCross, 30), transform: 'rotate(45)', fill: PALETTE.model }), 'Model estimate, suppressed');
+  legend += legendItem(360, 0, el('path', { d: symbolPath(symbolTriangle, 34), fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1 }), `Survey mean, CV above ${Math.round(yMax * 100)}%`);
+  body += el('g', { transform: `translate(${left + 10} 12)` }, legend);
   return svgRoot(WIDTH, height, 'Coefficient of variation of survey means and model estimates', body);
 }
 

@@ -72,23 +72,39 @@ export const PALETTE = {
   chains: ['#1d3b5a', '#d08a3c', '#7fa9c9', '#8c3b5e', '#4f7a3a', '#c9b458'],
 } as const;
 
-/** <defs> with the hatch patterns used for flags and suppressed figures; ids are prefixed. */
-export function patternDefs(prefix: string): string {
-  const hatch = (id: string, background: string, stroke: string, cross: boolean, gap = 5) =>
-    el(
-      'pattern',
-      { id: `${prefix}-${id}`, width: gap, height: gap, patternUnits: 'userSpaceOnUse', patternTransform: 'rotate(45)' },
-      el('rect', { width: gap, height: gap, fill: background }) +
-        el('line', { x1: 0, y1: 0, x2: 0, y2: gap, stroke, 'stroke-width': 1.4 }) +
-        (cross ? el('line', { x1: 0, y1: gap / 2, x2: gap, y2: gap / 2, stroke, 'stroke-width': 1.4 }) : ''),
-    );
-  return el(
-    'defs',
-    {},
-    hatch('caution', PALETTE.flag.caution, '#7a5512', false) +
-      hatch('suppress', PALETTE.flag.suppress, '#d8d4e2', true) +
-      hatch('suppressed', '#ffffff', PALETTE.suppressed, false, 4),
+/** Hatch styles: diagonal for caution, cross for suppressed flags, light diagonal for suppressed figures. */
+export const HATCH = {
+  caution: { background: PALETTE.flag.caution, stroke: '#7a5512', cross: false, spacing: 4.5, width: 1.1 },
+  suppress: { background: PALETTE.flag.suppress, stroke: '#cfcadb', cross: true, spacing: 4.5, width: 0.9 },
+  suppressed: { background: '#ffffff', stroke: PALETTE.suppressed, cross: false, spacing: 3.5, width: 1 },
+} as const;
+
+export type HatchStyle = (typeof HATCH)[keyof typeof HATCH];
+
+/**
+ * A shape filled with a hatch, drawn as real line geometry clipped to the shape. (SVG <pattern>
+ * fills are rasterised by Chromium's PDF backend; clipped lines stay vector.)
+ * `shape` is the SVG path data of the area; `box` its bounding box [x0, y0, x1, y1].
+ */
+export function hatchedShape(clipId: string, shape: string, box: [number, number, number, number], style: HatchStyle, outline?: { stroke: string; width: number }): string {
+  const [x0, y0, x1, y1] = box;
+  const h = y1 - y0;
+  let lines = '';
+  for (let k = x0 - h; k <= x1; k += style.spacing) {
+    lines += `M${num(k)},${num(y1)}L${num(k + h)},${num(y0)}`;
+    if (style.cross) lines += `M${num(k)},${num(y0)}L${num(k + h)},${num(y1)}`;
+  }
+  return (
+    el('clipPath', { id: clipId }, el('path', { d: shape })) +
+    el('path', { d: shape, fill: style.background, stroke: 'none' }) +
+    el('path', { d: lines, stroke: style.stroke, 'stroke-width': style.width, fill: 'none', 'clip-path': `url(#${clipId})` }) +
+    (outline ? el('path', { d: shape, fill: 'none', stroke: outline.stroke, 'stroke-width': outline.width }) : '')
   );
+}
+
+/** Path data of a rectangle, for `hatchedShape`. */
+export function rectPath(x: number, y: number, width: number, height: number): string {
+  return `M${num(x)},${num(y)}H${num(x + width)}V${num(y + height)}H${num(x)}Z`;
 }
 
 interface AxisOptions {
