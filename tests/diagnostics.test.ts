@@ -422,6 +422,10 @@ describe('diagnoseQuantity equals the plain slow transcription', () => {
     ['skewed exp() 4 × 300', ar1Chains(4, 300, 0.5, 7).map((c) => c.map((v) => Math.exp(2 * v)))],
     ['short chains 3 × 9', ar1Chains(3, 9, 0.1, 8)],
     ['one draw per chain 4 × 1', ar1Chains(4, 1, 0, 9)],
+    ['concentrated far from zero: 1000 + 1e-9 z, 4 × 200', ar1Chains(4, 200, 0.3, 15).map((c) => c.map((v) => 1000 + 1e-9 * v))],
+    // Outliers stretch the range so that the radix keys collapse: exercises the comparison-sort fallback.
+    ['extreme outliers 4 × 200', ar1Chains(4, 200, 0.3, 16).map((c, k) => c.map((v, i) => (i === 7 ? (k - 1.5) * 1e150 : v)))],
+    ['heavy tails (z^9) 3 × 300', ar1Chains(3, 300, 0.3, 19).map((c) => c.map((v) => v ** 9))],
     ['two draws per chain 4 × 2', ar1Chains(4, 2, 0, 10)],
   ];
   for (const [label, chains] of cases) {

@@ -107,8 +107,8 @@ const scalePrior = (whose: string) =>
             `Scale A of the half-Cauchy prior, in the unit of the measure: half the prior mass lies below A.`,
           ),
         }).describe(
-          `Half-Cauchy(0, A) prior on ${whose} (Gelman 2006), drawn through the inverse-gamma ` +
-            `mixture of Huang & Wand (2013). Advised when there are few sites, where a uniform ` +
+          `Half-Cauchy(0, A) prior on ${whose} (Gelman 2006); the plain sampler draws it through ` +
+            `the inverse-gamma mixture of Huang & Wand (2013). Advised when there are few sites, where a uniform ` +
             `prior lets the data overstate the spread between sites.`,
         ),
       }),

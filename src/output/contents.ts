@@ -59,8 +59,9 @@ export function scalePriorNote(prior: ScalePrior, what: string): string {
         'with very few sites it can overstate the spread, and half-Cauchy is advised instead.';
     case 'half_cauchy':
       return `Half-Cauchy prior with scale ${prior.scale} on the ${what}, learned from the data: weakly ` +
-        'informative, nearly flat below the scale with heavy tails above it (Gelman 2006); sampled through ' +
-        'the inverse-gamma mixture of Huang & Wand (2013, Bayesian Analysis 8(2), 439–452).';
+        'informative, nearly flat below the scale with heavy tails above it (Gelman 2006). The collapsed sampler ' +
+        'uses its density directly; the plain sampler draws it through the inverse-gamma mixture of ' +
+        'Huang & Wand (2013, Bayesian Analysis 8(2), 439–452).';
     case 'inverse_gamma':
       return `Inverse-gamma prior with shape ${prior.shape} and scale ${prior.scale} on the ${what} squared ` +
         '(the variance), learned from the data. Note that this prior is informative near zero ' +

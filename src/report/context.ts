@@ -4,7 +4,7 @@
  * builds itself (charts, typeset maths) is passed as `SafeString`.
  */
 import Handlebars from 'handlebars';
-import { chainLegend, traceDensityPlot } from './mcmc-plots.js';
+import { traceDensityPlot } from './mcmc-plots.js';
 import { intervalsChart, shrinkageChart, cvChart, type ChartSite } from './charts.js';
 import { fixed, normalQuantile, percent, significant, whole } from './format.js';
 import { estimatesMap, flagsMap, type MapSite, type SiteMap } from './map.js';
@@ -74,7 +74,6 @@ export interface AppendixView {
   };
   traces: Array<{ quantity: string; svg: Safe }>;
   traceMissing: string[];
-  chainLegend: Safe | null;
   reproduce: { command: string | null; node: string | null; platform: string | null; created: string | null; threads: string };
 }
 
@@ -89,7 +88,7 @@ export function quantityName(quantity: string): string {
 }
 
 const METHOD_NOTES: Record<string, string> = {
-  collapsed: 'Gibbs sampling with the between-site variance drawn with the site effects integrated out (collapsed), which keeps mixing good when σ_u is near zero.',
+  collapsed: 'Gibbs sampling with the between-site variance drawn with the site effects integrated out (collapsed), which keeps mixing good when the between-site spread is near zero.',
   plain: 'Plain Gibbs sampling: each block drawn from its full conditional in turn.',
 };
 
@@ -293,7 +292,6 @@ function buildAppendix(run: RunFolder): AppendixView {
     },
     traces,
     traceMissing,
-    chainLegend: traces.length ? safe(chainLegend(run.draws.chains)) : null,
     reproduce: {
       command: manifest.command,
       node: manifest.node,

@@ -72,6 +72,12 @@ export function traceDensityPlot(title: string, chains: Float32Array[]): string 
   const x = scaleLinear().domain([0, Math.max(1, draws - 1)]).range([traceLeft, traceRight]);
   const stride = Math.max(1, Math.ceil(draws / TRACE_POINTS));
   let body = text(traceLeft, 11, title, { class: 'plot-title' });
+  // Chain colours, named at the top right of every plot so no plot needs a separate key.
+  chains.forEach((_, c) => {
+    const x = densityRight - (chains.length - c) * 54;
+    body += el('line', { x1: x, x2: x + 12, y1: 7, y2: 7, stroke: PALETTE.chains[c % PALETTE.chains.length], 'stroke-width': 2 });
+    body += text(x + 15, 10, `chain ${c + 1}`, { class: 'legend small' });
+  });
   body += axisLeft(y, { at: traceLeft, ticks: 4 });
   body += axisBottom(x, { at: bottom, ticks: 5, label: stride > 1 ? `draw after warmup (every ${stride}th shown)` : 'draw after warmup', labelOffset: 28, format: (v) => String(Math.round(v) + 1) });
   const traceLine = line<number>()
@@ -116,15 +122,3 @@ export function traceDensityPlot(title: string, chains: Float32Array[]): string 
   body += el('line', { x1: densityLeft, x2: densityRight, y1: bottom, y2: bottom, stroke: PALETTE.axis, 'stroke-width': 0.8 });
   return svgRoot(width, height, `Trace and density of ${title}`, body, 'chart trace');
 }
-
-/** A legend naming the colour of each chain. */
-export function chainLegend(chains: number): string {
-  let body = '';
-  for (let c = 0; c < chains; c++) {
-    const x = 6 + c * 80;
-    body += el('line', { x1: x, x2: x + 18, y1: 9, y2: 9, stroke: PALETTE.chains[c % PALETTE.chains.length], 'stroke-width': 2 });
-    body += text(x + 22, 12.5, `chain ${c + 1}`, { class: 'legend' });
-  }
-  return svgRoot(Math.max(120, 6 + chains * 80), 18, 'Chain colours', body, 'chart legend-strip');
-}
-

@@ -368,7 +368,8 @@ function readSummary(path: string): RunSummary {
   const gateEntry = (key: string): GateEntry | null => {
     const entry = g.optionalObject(gate, key);
     if (!entry) return null;
-    return { quantity: g.string(entry, 'quantity', `gate.${key}`), value: g.number(entry, 'value', `gate.${key}`) };
+    // A non-finite statistic is written as null in JSON: keep it as NaN (shown as "—").
+    return { quantity: g.string(entry, 'quantity', `gate.${key}`), value: g.optionalNumber(entry, 'value') ?? Number.NaN };
   };
   const failing = Array.isArray(gate.failing) ? gate.failing.map((f) => (typeof f === 'string' ? f : JSON.stringify(f))) : [];
   return {
