@@ -67,6 +67,10 @@ export class DiagnosticsScratch {
   readonly middles: Float64Array;
   readonly folded: Float64Array;
   readonly foldedSource: Int32Array;
+  /** positionOf[i] = position of split draw i in sorted order (inverse permutation). */
+  readonly positionOf: Int32Array;
+  readonly bulkScoreAt: Float64Array;
+  readonly tailScoreAt: Float64Array;
   readonly zBulk: Float64Array;
   readonly zTail: Float64Array;
   readonly indicator05: Float64Array;
@@ -94,6 +98,9 @@ export class DiagnosticsScratch {
     this.middles = new Float64Array(oddLength ? nChains : 0);
     this.folded = new Float64Array(s);
     this.foldedSource = new Int32Array(s);
+    this.positionOf = new Int32Array(s);
+    this.bulkScoreAt = new Float64Array(s);
+    this.tailScoreAt = new Float64Array(s);
     this.zBulk = new Float64Array(s);
     this.zTail = new Float64Array(s);
     this.indicator05 = new Float64Array(s);
@@ -197,28 +204,49 @@ export function diagnoseQuantity(chains: readonly Float64Array[], scratch?: Diag
   const q95 = sortedQuantileType7(sortedAll, total, 0.95);
   const allConstant = isConstantRange(sortedAll[0], sortedAll[total - 1]);
 
-  // Rank-normalized draws (bulk) and rank-normalized folded draws (tail), in split layout.
+  // Normal scores by sorted position: bulk from the sorted draws, tail from the folded draws,
+  // whose k-th smallest sits at sorted position foldedSource[k].
+  const bulkAt = sc.bulkScoreAt;
+  const tailAt = sc.tailScoreAt;
+  scoreTieGroups(sorted, s, sc.blom, bulkAt, null);
+  foldSorted(sorted, s, median, sc.folded, sc.foldedSource);
+  scoreTieGroups(sc.folded, s, sc.blom, tailAt, sc.foldedSource);
+
+  // Back to split layout through the inverse permutation (gathers are cheaper than scatters).
+  const positionOf = sc.positionOf;
+  for (let p = 0; p < s; p++) positionOf[order[p]] = p;
   const zBulk = sc.zBulk;
   const zTail = sc.zTail;
-  scoreTieGroups(sorted, s, sc.blom, zBulk, order, null);
-  foldSorted(sorted, s, median, sc.folded, sc.foldedSource);
-  scoreTieGroups(sc.folded, s, sc.blom, zTail, order, sc.foldedSource);
-
   const i05 = sc.indicator05;
   const i95 = sc.indicator95;
+  let count05 = 0;
+  let count95 = 0;
   for (let i = 0; i < s; i++) {
+    const p = positionOf[i];
+    zBulk[i] = bulkAt[p];
+    zTail[i] = tailAt[p];
     const v = raw[i];
-    i05[i] = v <= q05 ? 1 : 0;
-    i95[i] = v <= q95 ? 1 : 0;
+    const below05 = v <= q05 ? 1 : 0;
+    const below95 = v <= q95 ? 1 : 0;
+    i05[i] = below05;
+    i95[i] = below95;
+    count05 += below05;
+    count95 += below95;
   }
 
+  // posterior returns NA for (numerically) constant input to each estimator; these are the
+  // same tests, read off the sorted values and counts instead of another pass over the draws.
+  const splitConstant = sorted[0] === sorted[s - 1]; // also: rank scores constant
+  const rawConstant = isConstantRange(sorted[0], sorted[s - 1]);
+  const foldedConstant = sc.folded[0] === sc.folded[s - 1];
+
   const ws = sc.ess;
-  const rhatBulk = rhatOfMatrix(zBulk, mSplit, nSplit, ws.chainMeans);
-  const rhatTail = rhatOfMatrix(zTail, mSplit, nSplit, ws.chainMeans);
-  const essBulk = essOfMatrix(zBulk, mSplit, nSplit, ws);
-  const essQ05 = allConstant ? Number.NaN : essOfMatrix(i05, mSplit, nSplit, ws);
-  const essQ95 = allConstant ? Number.NaN : essOfMatrix(i95, mSplit, nSplit, ws);
-  const essMean = essOfMatrix(raw, mSplit, nSplit, ws);
+  const rhatBulk = splitConstant ? Number.NaN : rhatOfMatrix(zBulk, mSplit, nSplit, ws.chainMeans);
+  const rhatTail = foldedConstant ? Number.NaN : rhatOfMatrix(zTail, mSplit, nSplit, ws.chainMeans);
+  const essBulk = splitConstant ? Number.NaN : essOfMatrix(zBulk, mSplit, nSplit, ws);
+  const essQ05 = allConstant || count05 === 0 || count05 === s ? Number.NaN : essOfMatrix(i05, mSplit, nSplit, ws);
+  const essQ95 = allConstant || count95 === 0 || count95 === s ? Number.NaN : essOfMatrix(i95, mSplit, nSplit, ws);
+  const essMean = rawConstant ? Number.NaN : essOfMatrix(raw, mSplit, nSplit, ws);
   const sd = Math.sqrt(varianceOfChains(chains));
   return {
     rhat: maxOrNaN(rhatBulk, rhatTail),
@@ -258,8 +286,10 @@ export function rankNormalize(chains: readonly Float64Array[]): Float64Array[] {
   for (let r = 1; r <= s; r++) blom[r] = normalQuantile((r - BLOM_OFFSET) / denominator);
   const sortOrder = new SortOrder(s);
   sortOrder.compute(flat, s);
+  const scoreAt = new Float64Array(s);
+  scoreTieGroups(sortOrder.sorted, s, blom, scoreAt, null);
   const z = new Float64Array(s);
-  scoreTieGroups(sortOrder.sorted, s, blom, z, sortOrder.order, null);
+  for (let p = 0; p < s; p++) z[sortOrder.order[p]] = scoreAt[p];
   const out: Float64Array[] = [];
   let offset = 0;
   for (const chain of chains) {
@@ -276,7 +306,7 @@ export function rankNormalize(chains: readonly Float64Array[]): Float64Array[] {
  */
 export function rhatOfChains(chains: readonly Float64Array[]): number {
   const { values, nChains, length } = toMatrix(chains);
-  if (!allFinite(chains)) return Number.NaN;
+  if (!allFinite(chains) || isConstantArray(values, nChains * length)) return Number.NaN;
   return rhatOfMatrix(values, nChains, length, new Float64Array(nChains));
 }
 
@@ -292,15 +322,15 @@ export function splitRhat(chains: readonly Float64Array[]): number {
  */
 export function essOfChains(chains: readonly Float64Array[]): number {
   const { values, nChains, length } = toMatrix(chains);
-  if (!allFinite(chains)) return Number.NaN;
+  if (!allFinite(chains) || isConstantArray(values, nChains * length)) return Number.NaN;
   return essOfMatrix(values, nChains, length, new EssWorkspace(nChains, length));
 }
 
 // ---------------------------------------------------------------------------------------------
 // Core estimators on a flat matrix: chain j occupies values[j*N .. (j+1)*N).
 
+/** Basic R-hat of a flat matrix; the caller has already excluded constant input. */
 function rhatOfMatrix(values: Float64Array, nChains: number, length: number, means: Float64Array): number {
-  if (isConstantArray(values, nChains * length)) return Number.NaN;
   let meanOfMeans = 0;
   let meanOfVars = 0;
   for (let j = 0; j < nChains; j++) {
@@ -331,10 +361,11 @@ function rhatOfMatrix(values: Float64Array, nChains: number, length: number, mea
 /**
  * ESS of a flat matrix (posterior 1.4.0 .ess, line by line): Geyer's initial positive sequence on
  * pairs of autocorrelations, made monotone, the "improved" last even term, tau >= 1/log10(M·N).
+ * The caller has already excluded constant input.
  */
 function essOfMatrix(values: Float64Array, nChains: number, length: number, ws: EssWorkspace): number {
   const total = nChains * length;
-  if (length < 3 || isConstantArray(values, total)) return Number.NaN;
+  if (length < 3) return Number.NaN;
 
   const means = ws.chainMeans;
   const centered = ws.centered;
@@ -363,19 +394,18 @@ function essOfMatrix(values: Float64Array, nChains: number, length: number, ws: 
     }
     varPlus += ss / (nChains - 1);
   }
-  const rhoAt = (t: number): number => 1 - (meanVar - lags.at(t) * toMeanAcov) / varPlus;
 
   // Geyer's initial positive sequence.
   const rho = ws.rho;
   let t = 0;
   let rhoEven = 1;
-  let rhoOdd = rhoAt(1);
+  let rhoOdd = 1 - (meanVar - lags.at(1) * toMeanAcov) / varPlus;
   rho[0] = rhoEven;
   rho[1] = rhoOdd;
   while (t < length - 5 && !Number.isNaN(rhoEven + rhoOdd) && rhoEven + rhoOdd > 0) {
     t += 2;
-    rhoEven = rhoAt(t);
-    rhoOdd = rhoAt(t + 1);
+    rhoEven = 1 - (meanVar - lags.at(t) * toMeanAcov) / varPlus;
+    rhoOdd = 1 - (meanVar - lags.at(t + 1) * toMeanAcov) / varPlus;
     rho[t] = 0;
     rho[t + 1] = 0;
     if (rhoEven + rhoOdd >= 0) {
@@ -423,16 +453,14 @@ function lowerBound(sorted: Float64Array, len: number, value: number): number {
 
 /**
  * Walk the tie groups of sorted[0..len): the group at positions [a, b) has average rank
- * (a+1+b)/2 and Blom score z. Writes z to target[order[p]] for every p in the group, or, with
- * `through`, to target[order[through[k]]] for every k in the group (sorted[k] is then a derived
- * sequence whose k-th entry comes from position through[k] of the sorting permutation).
+ * (a+1+b)/2 and Blom score z, written to scoreAt[k] for every k in the group or, with `through`,
+ * to scoreAt[through[k]].
  */
 function scoreTieGroups(
   sorted: Float64Array,
   len: number,
   blom: Float64Array,
-  target: Float64Array,
-  order: Int32Array,
+  scoreAt: Float64Array,
   through: Int32Array | null,
 ): void {
   const denominator = len - 2 * BLOM_OFFSET + 1;
@@ -445,8 +473,8 @@ function scoreTieGroups(
     // Odd group size gives an integer average rank, whose score is tabulated.
     const score =
       (rankTwice & 1) === 0 ? blom[rankTwice >>> 1] : normalQuantile((rankTwice / 2 - BLOM_OFFSET) / denominator);
-    if (through === null) for (let k = a; k < b; k++) target[order[k]] = score;
-    else for (let k = a; k < b; k++) target[order[through[k]]] = score;
+    if (through === null) for (let k = a; k < b; k++) scoreAt[k] = score;
+    else for (let k = a; k < b; k++) scoreAt[through[k]] = score;
     a = b;
   }
 }
@@ -461,16 +489,17 @@ function foldSorted(sorted: Float64Array, len: number, median: number, folded: F
   let below = split - 1;
   let above = split;
   let k = 0;
+  // Written without a data-dependent branch: the left/right choice is a coin flip for each draw,
+  // which a branch predictor cannot learn.
   while (below >= 0 && above < len) {
     const left = median - sorted[below];
     const right = sorted[above] - median;
-    if (left <= right) {
-      folded[k] = left;
-      source[k++] = below--;
-    } else {
-      folded[k] = right;
-      source[k++] = above++;
-    }
+    const takeLeft = left <= right ? 1 : 0;
+    folded[k] = takeLeft === 1 ? left : right;
+    source[k] = takeLeft === 1 ? below : above;
+    k++;
+    below -= takeLeft;
+    above += 1 - takeLeft;
   }
   while (below >= 0) {
     folded[k] = median - sorted[below];

@@ -1,14 +1,16 @@
 /**
  * The sorting permutation of a vector of finite doubles: order[p] = index of the p-th smallest.
  *
- * Fast path: a 32-bit key k(v) = floor((v - min) · (2^32 - 1) / (max - min)), which never
- * decreases as v grows, sorted by a least-significant-digit radix sort (three passes of 11, 11 and
- * 10 bits, stable, O(S)); then one insertion-sort sweep on the values themselves repairs the order
+ * Fast path: a 24-bit key k(v) = floor((v - min) · (2^24 - 1) / (max - min)), which never
+ * decreases as v grows, sorted by a least-significant-digit radix sort (two stable passes of 12
+ * bits, O(S)); then one insertion-sort sweep on the values themselves repairs the order
  * inside groups of equal keys (the only places where it can be wrong, since k(a) < k(b) implies
  * a < b). For draws of a continuous distribution such groups are rare, so the sweep costs O(S).
  * When the values pile up in few keys (extreme outliers stretch the range), the sweep's work is
  * capped and the permutation is recomputed by a comparison sort — exact either way.
  */
+const KEY_MAX = 16777215; // 2^24 - 1
+
 export class SortOrder {
   /** order[p] = index of the p-th smallest value (ties in index order on the fast path). */
   readonly order: Int32Array;
@@ -17,7 +19,7 @@ export class SortOrder {
   private readonly keys: Uint32Array;
   private readonly keysSwap: Uint32Array;
   private readonly orderSwap: Int32Array;
-  private readonly counts = new Int32Array(3 * 2048);
+  private readonly counts = new Int32Array(2 * 4096);
 
   constructor(readonly capacity: number) {
     this.order = new Int32Array(capacity);
@@ -37,74 +39,66 @@ export class SortOrder {
       if (v < min) min = v;
       if (v > max) max = v;
     }
-    const scale = 4294967295 / (max - min);
+    const scale = KEY_MAX / (max - min);
     if (!(scale < Number.POSITIVE_INFINITY) || !this.radixThenRepair(values, len, min, scale)) {
       this.comparisonSort(values, len);
     }
-    const order = this.order;
-    const sorted = this.sorted;
-    for (let p = 0; p < len; p++) sorted[p] = values[order[p]];
   }
 
   /** Returns false when the repair sweep would cost too much (caller falls back). */
   private radixThenRepair(values: Float64Array, len: number, min: number, scale: number): boolean {
     const counts = this.counts;
     counts.fill(0);
-    let keys = this.keys;
-    let order = this.order;
+    const keys = this.keys;
+    const order = this.order;
     for (let i = 0; i < len; i++) {
       let k = Math.floor((values[i] - min) * scale);
-      if (k > 4294967295) k = 4294967295;
+      if (k > KEY_MAX) k = KEY_MAX;
       keys[i] = k;
-      order[i] = i;
-      counts[k & 2047]++;
-      counts[2048 + ((k >>> 11) & 2047)]++;
-      counts[4096 + (k >>> 22)]++;
+      counts[k & 4095]++;
+      counts[4096 + (k >>> 12)]++;
     }
-    for (let d = 0; d < 3; d++) {
+    for (let d = 0; d < 2; d++) {
       let sum = 0;
-      const base = d * 2048;
-      for (let b = 0; b < 2048; b++) {
+      const base = d * 4096;
+      for (let b = 0; b < 4096; b++) {
         const c = counts[base + b];
         counts[base + b] = sum;
         sum += c;
       }
     }
-    let keysOut = this.keysSwap;
-    let orderOut = this.orderSwap;
-    for (let d = 0; d < 3; d++) {
-      const shift = 11 * d;
-      const base = d * 2048;
-      for (let i = 0; i < len; i++) {
-        const k = keys[i];
-        const pos = counts[base + ((k >>> shift) & 2047)]++;
-        keysOut[pos] = k;
-        orderOut[pos] = order[i];
-      }
-      const tk = keys;
-      keys = keysOut;
-      keysOut = tk;
-      const to = order;
-      order = orderOut;
-      orderOut = to;
+    // Pass 1 (low 12 bits) into the swap buffers, pass 2 (high 12 bits) back into `order`.
+    const keysMid = this.keysSwap;
+    const orderMid = this.orderSwap;
+    for (let i = 0; i < len; i++) {
+      const k = keys[i];
+      const pos = counts[k & 4095]++;
+      keysMid[pos] = k;
+      orderMid[pos] = i;
     }
-    // Three passes: the result sits in the swap buffers; move it home.
-    this.order.set(order.subarray(0, len));
+    for (let i = 0; i < len; i++) {
+      const pos = counts[4096 + (keysMid[i] >>> 12)]++;
+      order[pos] = orderMid[i];
+    }
 
-    // Repair equal-key groups by insertion sort on the values, with a work cap.
-    const out = this.order;
+    // Gather, then repair equal-key groups by insertion sort (values and indices move together),
+    // with a work cap.
+    const sorted = this.sorted;
+    for (let p = 0; p < len; p++) sorted[p] = values[order[p]];
     let work = 0;
     const workCap = 16 * len + 1024;
     for (let p = 1; p < len; p++) {
-      const idx = out[p];
-      const v = values[idx];
+      const v = sorted[p];
+      if (sorted[p - 1] <= v) continue;
+      const idx = order[p];
       let q = p - 1;
-      if (values[out[q]] <= v) continue;
-      while (q >= 0 && values[out[q]] > v) {
-        out[q + 1] = out[q];
+      while (q >= 0 && sorted[q] > v) {
+        sorted[q + 1] = sorted[q];
+        order[q + 1] = order[q];
         q--;
       }
-      out[q + 1] = idx;
+      sorted[q + 1] = v;
+      order[q + 1] = idx;
       work += p - 1 - q;
       if (work > workCap) return false;
     }
@@ -115,5 +109,7 @@ export class SortOrder {
     const order = this.order;
     for (let i = 0; i < len; i++) order[i] = i;
     order.subarray(0, len).sort((a, b) => values[a] - values[b]);
+    const sorted = this.sorted;
+    for (let p = 0; p < len; p++) sorted[p] = values[order[p]];
   }
 }

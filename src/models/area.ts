@@ -8,8 +8,9 @@
  * Two samplers share the quantities they record (β, σ, every θ_i):
  *
  * - `collapsed` (default). σ is drawn from its marginal posterior p(σ | y), with β and θ
- *   integrated out analytically, by univariate slice sampling on t = log σ (Neal 2003, "Slice
- *   sampling", Annals of Statistics 31(3), stepping-out and shrinkage). Then β | σ, y and
+ *   integrated out analytically, by univariate slice sampling (Neal 2003, "Slice sampling",
+ *   Annals of Statistics 31(3), stepping-out and shrinkage) on log σ, or on σ itself when warmup
+ *   shows the posterior reaching down to zero (where log σ has a long left tail). Then β | σ, y and
  *   θ | β, σ, y are drawn exactly. Because β and θ are never conditioned on in the σ update, the
  *   chain does not stall when σ is near zero — the corner where plain Gibbs mixes slowly
  *   (Gelman 2006, Bayesian Analysis 1(3); Yu & Meng 2011, JCGS 20(3)) — and each sweep is a
@@ -195,54 +196,69 @@ function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: Marg
 // Collapsed sampler
 
 export interface CollapsedState {
-  logSigma: number;
+  /** Current σ_u. */
+  sigma: number;
+  /** Scale the slice sampler moves on: log σ (far from zero) or σ itself (mass near zero). */
+  scale: 'log' | 'linear';
+  /** Log density of the current point on the current scale. */
   logTarget: number;
-  /** Slice width on the log σ scale, tuned during warmup. */
+  /** Slice width on the current scale, tuned during warmup. */
   width: number;
   beta: Float64Array;
   theta: Float64Array;
   work: MarginalWork;
-  /** Welford running moments of log σ over warmup, for tuning the width. */
-  tuneCount: number;
-  tuneMean: number;
-  tuneM2: number;
+  /** Running sums of σ and log σ over the current warmup window, for tuning. */
+  tune: Float64Array; // [count, Σσ, Σσ², Σlogσ, Σ(logσ)²]
 }
 
 const STEP_OUT_LIMIT = 32;
 
-/** Draws that tune the slice width during warmup: after 25, 50, 100, … iterations. */
+/** Draws that tune the slice during warmup: after 25, 50, 100, 200, … iterations. */
 function isTuningPoint(iteration: number): boolean {
   const k = (iteration + 1) / 25;
   return Number.isInteger(k) && (k & (k - 1)) === 0;
 }
 
-/** One slice-sampling update of log σ (Neal 2003, fig. 3 stepping-out, fig. 5 shrinkage). */
-function sliceUpdateLogSigma(state: CollapsedState, d: Packed, prior: ScalePrior, rng: Rng): void {
-  const t0 = state.logSigma;
+/**
+ * Log density of σ_u's marginal posterior on the sampler's scale: on log σ it is the density
+ * of t = log σ; on σ itself the Jacobian e^t is removed, and σ ≤ 0 is outside the support.
+ */
+function logTargetOnScale(x: number, scale: CollapsedState['scale'], d: Packed, prior: ScalePrior, work: MarginalWork): number {
+  if (scale === 'log') return logMarginalLogSigma(x, d, prior, work);
+  if (!(x > 0)) return -Infinity;
+  const t = Math.log(x);
+  return logMarginalLogSigma(t, d, prior, work) - t;
+}
+
+/** One slice-sampling update of σ_u (Neal 2003, fig. 3 stepping-out, fig. 5 shrinkage). */
+function sliceUpdateSigma(state: CollapsedState, d: Packed, prior: ScalePrior, rng: Rng): void {
+  const { scale, work } = state;
+  const x0 = scale === 'log' ? Math.log(state.sigma) : state.sigma;
+  const target = (x: number): number => logTargetOnScale(x, scale, d, prior, work);
   const level = state.logTarget + Math.log(rng.uniform()); // log of a uniform height under the density
   const w = state.width;
-  let lo = t0 - w * rng.uniform();
+  let lo = x0 - w * rng.uniform();
   let hi = lo + w;
   let leftSteps = Math.floor(STEP_OUT_LIMIT * rng.uniform());
   let rightSteps = STEP_OUT_LIMIT - 1 - leftSteps;
-  while (leftSteps > 0 && logMarginalLogSigma(lo, d, prior, state.work) > level) {
+  while (leftSteps > 0 && target(lo) > level) {
     lo -= w;
     leftSteps--;
   }
-  while (rightSteps > 0 && logMarginalLogSigma(hi, d, prior, state.work) > level) {
+  while (rightSteps > 0 && target(hi) > level) {
     hi += w;
     rightSteps--;
   }
   for (;;) {
-    const t1 = lo + (hi - lo) * rng.uniform();
-    const value = logMarginalLogSigma(t1, d, prior, state.work);
+    const x1 = lo + (hi - lo) * rng.uniform();
+    const value = target(x1);
     if (value > level) {
-      state.logSigma = t1;
+      state.sigma = scale === 'log' ? Math.exp(x1) : x1;
       state.logTarget = value;
       return; // the work buffers now hold P's factor and L⁻¹b at the accepted σ
     }
-    if (t1 < t0) lo = t1;
-    else hi = t1;
+    if (x1 < x0) lo = x1;
+    else hi = x1;
   }
 }
 
@@ -299,16 +315,33 @@ function startingLogSigma(d: Packed, rng: Rng): number {
   return 0.5 * Math.log(excess) + normal(rng);
 }
 
-function tuneWidth(state: CollapsedState, phase: Phase, iteration: number): void {
+/** Threshold on the coefficient of variation of σ_u above which the slice moves on σ itself. */
+const LINEAR_SCALE_CV = 0.5;
+
+/**
+ * Warmup tuning of the slice sampler from the window of draws since the last tuning point:
+ * the scale (σ when its posterior reaches down to zero, where log σ has a long left tail;
+ * log σ otherwise) and a width of about three posterior sds on that scale.
+ */
+function tuneSlice(state: CollapsedState, d: Packed, prior: ScalePrior, phase: Phase, iteration: number): void {
   if (phase !== 'warmup') return;
-  state.tuneCount++;
-  const delta = state.logSigma - state.tuneMean;
-  state.tuneMean += delta / state.tuneCount;
-  state.tuneM2 += delta * (state.logSigma - state.tuneMean);
-  if (isTuningPoint(iteration) && state.tuneCount > 10) {
-    const sd = Math.sqrt(state.tuneM2 / (state.tuneCount - 1));
-    if (sd > 0) state.width = 3 * sd;
-  }
+  const t = state.tune;
+  const logSigma = Math.log(state.sigma);
+  t[0] += 1;
+  t[1] += state.sigma;
+  t[2] += state.sigma * state.sigma;
+  t[3] += logSigma;
+  t[4] += logSigma * logSigma;
+  if (!isTuningPoint(iteration) || t[0] < 20) return;
+  const sd = (sum: number, sumSq: number) => Math.sqrt(Math.max(sumSq - (sum * sum) / t[0], 0) / (t[0] - 1));
+  const meanSigma = t[1] / t[0];
+  const sdSigma = sd(t[1], t[2]);
+  const sdLog = sd(t[3], t[4]);
+  state.scale = sdSigma > LINEAR_SCALE_CV * meanSigma ? 'linear' : 'log';
+  const width = 3 * (state.scale === 'linear' ? sdSigma : sdLog);
+  if (width > 0) state.width = width;
+  state.logTarget = logTargetOnScale(state.scale === 'log' ? logSigma : state.sigma, state.scale, d, prior, state.work);
+  t.fill(0);
 }
 
 export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState> {
@@ -321,26 +354,25 @@ export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState>
       const work = createMarginalWork(d);
       const logSigma = startingLogSigma(d, rng);
       return {
-        logSigma,
+        sigma: Math.exp(logSigma),
+        scale: 'log',
         logTarget: logMarginalLogSigma(logSigma, d, siteSd, work),
         width: 1,
         beta: new Float64Array(p),
         theta: new Float64Array(data.m),
         work,
-        tuneCount: 0,
-        tuneMean: 0,
-        tuneM2: 0,
+        tune: new Float64Array(5),
       };
     },
     step(state, rng, phase, iteration) {
-      sliceUpdateLogSigma(state, d, siteSd, rng);
+      sliceUpdateSigma(state, d, siteSd, rng);
       drawBetaFromFactor(state, p, rng);
-      drawTheta(state.theta, data, state.beta, Math.exp(2 * state.logSigma), rng);
-      tuneWidth(state, phase, iteration);
+      drawTheta(state.theta, data, state.beta, state.sigma * state.sigma, rng);
+      tuneSlice(state, d, siteSd, phase, iteration);
       return state;
     },
     record(state, out, stride, offset) {
-      recordQuantities(state.beta, Math.exp(state.logSigma), state.theta, out, stride, offset);
+      recordQuantities(state.beta, state.sigma, state.theta, out, stride, offset);
     },
   };
 }

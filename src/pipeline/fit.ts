@@ -12,8 +12,8 @@ import type { AreaData, FileFingerprint } from '../data/types.js';
 import { areaQuantities } from '../models/area.js';
 import { drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
 import { writeRunFolder } from '../output/run-folder.js';
-import { defaultThreads, sampleChains } from '../sampler/parallel.js';
-import { summarizeQuantities, type ChainValues } from '../summaries/posterior.js';
+import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
+import type { ChainValues, QuantitySummary } from '../summaries/posterior.js';
 import { evaluateGate, siteEstimates, type GateResult, type SiteEstimate } from '../summaries/sites.js';
 import { VERSION } from '../version.js';
 
@@ -82,7 +82,7 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   timingsMs.sample = lap();
 
   const names = areaQuantities(data);
-  const summaries = summarizeQuantities(chains, names, settings.interval);
+  const summaries = await summarizeChains(chains, names, settings.interval, threads);
   const byName = new Map(summaries.map((s) => [s.name, s]));
   const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
   const sites = siteEstimates(data, byName, pooledDraws(chains, names.indexOf('site_sd')), settings, gate);
@@ -99,7 +99,7 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
 interface FitProducts {
   names: string[];
   chains: ChainValues[];
-  summaries: ReturnType<typeof summarizeQuantities>;
+  summaries: QuantitySummary[];
   sites: SiteEstimate[];
   gate: GateResult;
   threads: number;

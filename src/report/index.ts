@@ -29,6 +29,8 @@ export interface ReportOptions {
   mapIdProperty?: string;
   /** Browser executable; default: found by `findBrowser`. */
   browserPath?: string;
+  /** Set false to write only report.html (no browser needed). */
+  pdf?: boolean;
 }
 
 export interface ReportResult {
@@ -128,6 +130,10 @@ export async function renderReport(runDir: string, opts: ReportOptions = {}): Pr
     writeAtomic(result.geojson, estimatesGeojson(map, run.estimates));
   }
 
+  if (opts.pdf === false) {
+    if (warnings.length) result.warning = warnings.join('; ');
+    return result;
+  }
   const browser = opts.browserPath ?? findBrowser();
   if (!browser) {
     warnings.push(`no Chromium or Chrome found, so report.pdf was not written (report.html was): ${INSTALL_HINT}`);

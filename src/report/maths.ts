@@ -141,7 +141,7 @@ const katexDist = (): string => dirname(createRequire(import.meta.url).resolve('
  */
 export function katexCss(renderedHtml: string): string {
   const dist = katexDist();
-  const css = readFileSync(join(dist, 'katex.css'), 'utf8');
+  const css = readFileSync(join(dist, 'katex.css'), 'utf8').replace(/\/\*[\s\S]*?\*\//g, ''); // comments hold URLs
   const used = new Set<string>();
   const classes = new Set<string>();
   for (const match of renderedHtml.matchAll(/class="([^"]*)"/g)) for (const c of match[1].split(/\s+/)) if (c) classes.add(c);

@@ -76,8 +76,10 @@ export function renderTemplates(set: TemplateSet, context: object, extra: { css:
   hb.registerHelper('eq', (a: unknown, b: unknown) => a === b);
   hb.registerHelper('join', (list: unknown, separator: unknown) =>
     Array.isArray(list) ? list.map(String).join(typeof separator === 'string' ? separator : ', ') : '');
+  // Handlebars compiles lazily: parse every file now so a syntax error names its own file.
   for (const [name, source] of Object.entries(set.partials)) {
     try {
+      hb.parse(source);
       hb.registerPartial(name, hb.compile(source, { strict: true }));
     } catch (error) {
       throw templateError(set.origin[`partial:${name}`], error);
@@ -85,6 +87,7 @@ export function renderTemplates(set: TemplateSet, context: object, extra: { css:
   }
   let page: Handlebars.TemplateDelegate;
   try {
+    hb.parse(set.page);
     page = hb.compile(set.page, { strict: true });
   } catch (error) {
     throw templateError(set.origin.page, error);

@@ -30,9 +30,10 @@ export function runChain<S>(
   plan: ChainPlan,
   chain: number,
   onProgress?: (sweepsDone: number) => void,
+  allocate: (length: number) => Float64Array = (length) => new Float64Array(length),
 ): ChainDraws {
   const rng = createRng(plan.seed, chain);
-  const values = new Float64Array(kernel.quantities.length * plan.draws);
+  const values = allocate(kernel.quantities.length * plan.draws);
   let state = kernel.init(rng);
   for (let it = 0; it < plan.warmup; it++) {
     state = kernel.step(state, rng, 'warmup', it);

@@ -1,7 +1,7 @@
 /**
- * Runs the chains of a fit, in worker threads or in this thread. Chain k always uses stream k of
- * the seed, and each chain runs start to finish on one thread, so the draws are identical for
- * any thread count (tests/sampler-parallel.test.ts checks this).
+ * Runs the chains of a fit, and then their summaries, in worker threads or in this thread.
+ * Chain k always uses stream k of the seed, and each chain runs start to finish on one thread,
+ * so the draws are identical for any thread count (tests/area-sampler.test.ts checks this).
  */
 import { existsSync } from 'node:fs';
 import { availableParallelism } from 'node:os';
@@ -9,6 +9,7 @@ import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { Worker } from 'node:worker_threads';
 import { buildKernel, type ModelSpec } from '../models/index.js';
+import { summarizeQuantities, unpackSummary, type ChainValues, type QuantitySummary } from '../summaries/posterior.js';
 import { runChain, type ChainDraws, type ChainPlan } from './driver.js';
 import type { WorkerJob, WorkerMessage } from './worker.js';
 
@@ -43,6 +44,26 @@ function workerScript(): string {
   throw new Error(`worker script not found (looked for ${beside} and ${built}); run "npm run build"`);
 }
 
+/** Runs one worker job, passing every message to `onMessage`; resolves when the worker exits. */
+function runWorker(job: WorkerJob, onMessage: (message: WorkerMessage) => void): Promise<void> {
+  return new Promise<void>((resolve, reject) => {
+    const worker = new Worker(workerScript(), { workerData: job });
+    let failed = false;
+    worker.on('message', (message: WorkerMessage) => {
+      if (message.type === 'error') {
+        failed = true;
+        reject(Object.assign(new Error(message.message), { stack: message.stack }));
+      } else onMessage(message);
+    });
+    worker.on('error', reject);
+    worker.on('exit', (code) => {
+      if (failed) return;
+      if (code === 0) resolve();
+      else reject(new Error(`worker thread stopped with code ${code}`));
+    });
+  });
+}
+
 export async function sampleChains(request: SamplingRequest): Promise<ChainDraws[]> {
   const threads = Math.min(request.threads ?? defaultThreads(request.chains), request.chains);
   const total = request.chains * (request.plan.warmup + request.plan.draws);
@@ -60,26 +81,45 @@ export async function sampleChains(request: SamplingRequest): Promise<ChainDraws
     for (let c = 0; c < request.chains; c++) out.push(runChain(kernel, request.plan, c, (s) => report(c, s)));
     return out;
   }
-  const script = workerScript();
   const results: ChainDraws[] = new Array(request.chains);
   await Promise.all(
-    assignChains(request.chains, threads).map(
-      (chains) =>
-        new Promise<void>((resolve, reject) => {
-          const job: WorkerJob = { spec: request.spec, plan: request.plan, chains };
-          const worker = new Worker(script, { workerData: job });
-          worker.on('message', (message: WorkerMessage) => {
-            if (message.type === 'progress') report(message.chain, message.sweeps);
-            else if (message.type === 'chain')
-              results[message.chain] = { chain: message.chain, draws: message.draws, values: message.values };
-            else reject(Object.assign(new Error(message.message), { stack: message.stack }));
-          });
-          worker.on('error', reject);
-          worker.on('exit', (code) =>
-            code === 0 ? resolve() : reject(new Error(`sampler worker stopped with code ${code}`)),
-          );
-        }),
+    assignChains(request.chains, threads).map((chains) =>
+      runWorker({ task: 'sample', spec: request.spec, plan: request.plan, chains }, (message) => {
+        if (message.type === 'progress') report(message.chain, message.sweeps);
+        else if (message.type === 'chain')
+          results[message.chain] = { chain: message.chain, draws: message.draws, values: message.values };
+      }),
     ),
   );
   return results;
+}
+
+/**
+ * Summaries and diagnostics of every quantity, split over `threads` workers when the draws are
+ * in shared memory (as `sampleChains` leaves them with threads > 1); otherwise in this thread.
+ * The result does not depend on the split.
+ */
+export async function summarizeChains(
+  chains: readonly ChainValues[],
+  names: readonly string[],
+  interval: number,
+  threads: number,
+): Promise<QuantitySummary[]> {
+  const shared = chains.every((c) => c.values.buffer instanceof SharedArrayBuffer);
+  if (threads <= 1 || !shared || names.length < 2 * threads) return summarizeQuantities(chains, names, interval);
+  const out: QuantitySummary[] = new Array(names.length);
+  const size = Math.ceil(names.length / threads);
+  const jobs: Promise<void>[] = [];
+  for (let from = 0; from < names.length; from += size) {
+    const to = Math.min(from + size, names.length);
+    const plain = chains.map((c) => ({ draws: c.draws, values: c.values }));
+    jobs.push(
+      runWorker({ task: 'summarize', chains: plain, from, to, interval }, (message) => {
+        if (message.type !== 'summary') return;
+        for (let q = message.from; q < to; q++) out[q] = unpackSummary(names[q], message.packed, q - message.from);
+      }),
+    );
+  }
+  await Promise.all(jobs);
+  return out;
 }
