@@ -9,8 +9,8 @@
  *
  * - `collapsed` (default). σ is drawn from its marginal posterior p(σ | y), with β and θ
  *   integrated out analytically, by univariate slice sampling (Neal 2003, "Slice sampling",
- *   Annals of Statistics 31(3), stepping-out and shrinkage) on log σ, or on σ itself when warmup
- *   shows the posterior reaching down to zero (where log σ has a long left tail). Then β | σ, y and
+ *   Annals of Statistics 31(3), stepping-out and shrinkage) on log σ or on σ itself, whichever
+ *   moved farther during warmup (σ suits posteriors reaching down to zero, log σ the others). Then β | σ, y and
  *   θ | β, σ, y are drawn exactly. Because β and θ are never conditioned on in the σ update, the
  *   chain does not stall when σ is near zero — the corner where plain Gibbs mixes slowly
  *   (Gelman 2006, Bayesian Analysis 1(3); Yu & Meng 2011, JCGS 20(3)) — and each sweep is a
@@ -195,20 +195,26 @@ function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: Marg
 // ---------------------------------------------------------------------------------------------
 // Collapsed sampler
 
+export type SliceScale = 'log' | 'linear';
+
 export interface CollapsedState {
   /** Current σ_u. */
   sigma: number;
-  /** Scale the slice sampler moves on: log σ (far from zero) or σ itself (mass near zero). */
-  scale: 'log' | 'linear';
-  /** Log density of the current point on the current scale. */
+  /** Log density of t = log σ at the current point (on σ itself it is this minus t). */
   logTarget: number;
-  /** Slice width on the current scale, tuned during warmup. */
-  width: number;
+  /** Scale used after warmup: log σ, or σ itself when that mixes better (mass near zero). */
+  scale: SliceScale;
+  /** Slice widths on each scale, tuned during warmup. */
+  widthLog: number;
+  widthLinear: number;
   beta: Float64Array;
   theta: Float64Array;
   work: MarginalWork;
-  /** Running sums of σ and log σ over the current warmup window, for tuning. */
-  tune: Float64Array; // [count, Σσ, Σσ², Σlogσ, Σ(logσ)²]
+  /**
+   * Warmup window statistics: [count, Σσ, Σσ², Σlogσ, Σ(logσ)², and per scale the summed
+   * squared jump of log σ and the number of updates on it].
+   */
+  tune: Float64Array;
 }
 
 const STEP_OUT_LIMIT = 32;
@@ -220,23 +226,28 @@ function isTuningPoint(iteration: number): boolean {
 }
 
 /**
- * Log density of σ_u's marginal posterior on the sampler's scale: on log σ it is the density
- * of t = log σ; on σ itself the Jacobian e^t is removed, and σ ≤ 0 is outside the support.
+ * Log density of σ_u's marginal posterior on a slice scale: on log σ it is the density of
+ * t = log σ; on σ itself the Jacobian e^t is removed, and σ ≤ 0 is outside the support.
  */
-function logTargetOnScale(x: number, scale: CollapsedState['scale'], d: Packed, prior: ScalePrior, work: MarginalWork): number {
+function logTargetOnScale(x: number, scale: SliceScale, d: Packed, prior: ScalePrior, work: MarginalWork): number {
   if (scale === 'log') return logMarginalLogSigma(x, d, prior, work);
   if (!(x > 0)) return -Infinity;
   const t = Math.log(x);
   return logMarginalLogSigma(t, d, prior, work) - t;
 }
 
-/** One slice-sampling update of σ_u (Neal 2003, fig. 3 stepping-out, fig. 5 shrinkage). */
-function sliceUpdateSigma(state: CollapsedState, d: Packed, prior: ScalePrior, rng: Rng): void {
-  const { scale, work } = state;
-  const x0 = scale === 'log' ? Math.log(state.sigma) : state.sigma;
+/**
+ * One slice-sampling update of σ_u on the given scale (Neal 2003, fig. 3 stepping-out, fig. 5
+ * shrinkage). Each scale's update leaves the posterior invariant, so warmup may alternate them.
+ */
+function sliceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, prior: ScalePrior, rng: Rng): void {
+  const { work } = state;
+  const t0 = Math.log(state.sigma);
+  const x0 = scale === 'log' ? t0 : state.sigma;
+  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
   const target = (x: number): number => logTargetOnScale(x, scale, d, prior, work);
-  const level = state.logTarget + Math.log(rng.uniform()); // log of a uniform height under the density
-  const w = state.width;
+  const level = current + Math.log(rng.uniform()); // log of a uniform height under the density
+  const w = scale === 'log' ? state.widthLog : state.widthLinear;
   let lo = x0 - w * rng.uniform();
   let hi = lo + w;
   let leftSteps = Math.floor(STEP_OUT_LIMIT * rng.uniform());
@@ -254,7 +265,7 @@ function sliceUpdateSigma(state: CollapsedState, d: Packed, prior: ScalePrior, r
     const value = target(x1);
     if (value > level) {
       state.sigma = scale === 'log' ? Math.exp(x1) : x1;
-      state.logTarget = value;
+      state.logTarget = scale === 'log' ? value : value + Math.log(x1);
       return; // the work buffers now hold P's factor and L⁻¹b at the accepted σ
     }
     if (x1 < x0) lo = x1;
@@ -315,15 +326,19 @@ function startingLogSigma(d: Packed, rng: Rng): number {
   return 0.5 * Math.log(excess) + normal(rng);
 }
 
-/** Threshold on the coefficient of variation of σ_u above which the slice moves on σ itself. */
-const LINEAR_SCALE_CV = 0.5;
+/** Warmup alternates the two slice scales; sampling keeps the one that moved log σ farther. */
+function scaleForSweep(state: CollapsedState, phase: Phase, iteration: number): SliceScale {
+  if (phase === 'sampling') return state.scale;
+  return iteration % 2 === 0 ? 'log' : 'linear';
+}
 
 /**
- * Warmup tuning of the slice sampler from the window of draws since the last tuning point:
- * the scale (σ when its posterior reaches down to zero, where log σ has a long left tail;
- * log σ otherwise) and a width of about three posterior sds on that scale.
+ * Warmup tuning from the window of sweeps since the last tuning point: a width of about three
+ * posterior sds on each scale, and the scale with the larger mean squared jump of log σ (the
+ * usual efficiency proxy for a one-dimensional update). Log σ suits posteriors away from zero;
+ * σ itself suits posteriors that reach down to zero, where log σ has a long left tail.
  */
-function tuneSlice(state: CollapsedState, d: Packed, prior: ScalePrior, phase: Phase, iteration: number): void {
+function tuneSlice(state: CollapsedState, scale: SliceScale, previousSigma: number, phase: Phase, iteration: number): void {
   if (phase !== 'warmup') return;
   const t = state.tune;
   const logSigma = Math.log(state.sigma);
@@ -332,15 +347,21 @@ function tuneSlice(state: CollapsedState, d: Packed, prior: ScalePrior, phase: P
   t[2] += state.sigma * state.sigma;
   t[3] += logSigma;
   t[4] += logSigma * logSigma;
+  const jump = (logSigma - Math.log(previousSigma)) ** 2;
+  if (scale === 'log') {
+    t[5] += jump;
+    t[6] += 1;
+  } else {
+    t[7] += jump;
+    t[8] += 1;
+  }
   if (!isTuningPoint(iteration) || t[0] < 20) return;
   const sd = (sum: number, sumSq: number) => Math.sqrt(Math.max(sumSq - (sum * sum) / t[0], 0) / (t[0] - 1));
-  const meanSigma = t[1] / t[0];
-  const sdSigma = sd(t[1], t[2]);
-  const sdLog = sd(t[3], t[4]);
-  state.scale = sdSigma > LINEAR_SCALE_CV * meanSigma ? 'linear' : 'log';
-  const width = 3 * (state.scale === 'linear' ? sdSigma : sdLog);
-  if (width > 0) state.width = width;
-  state.logTarget = logTargetOnScale(state.scale === 'log' ? logSigma : state.sigma, state.scale, d, prior, state.work);
+  const widthLinear = 3 * sd(t[1], t[2]);
+  const widthLog = 3 * sd(t[3], t[4]);
+  if (widthLinear > 0) state.widthLinear = widthLinear;
+  if (widthLog > 0) state.widthLog = widthLog;
+  state.scale = t[7] / Math.max(t[8], 1) > t[5] / Math.max(t[6], 1) ? 'linear' : 'log';
   t.fill(0);
 }
 
@@ -353,22 +374,26 @@ export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState>
     init(rng) {
       const work = createMarginalWork(d);
       const logSigma = startingLogSigma(d, rng);
+      const sigma = Math.exp(logSigma);
       return {
-        sigma: Math.exp(logSigma),
-        scale: 'log',
+        sigma,
         logTarget: logMarginalLogSigma(logSigma, d, siteSd, work),
-        width: 1,
+        scale: 'log',
+        widthLog: 1,
+        widthLinear: sigma,
         beta: new Float64Array(p),
         theta: new Float64Array(data.m),
         work,
-        tune: new Float64Array(5),
+        tune: new Float64Array(9),
       };
     },
     step(state, rng, phase, iteration) {
-      sliceUpdateSigma(state, d, siteSd, rng);
+      const scale = scaleForSweep(state, phase, iteration);
+      const previousSigma = state.sigma;
+      sliceUpdateSigma(state, scale, d, siteSd, rng);
       drawBetaFromFactor(state, p, rng);
       drawTheta(state.theta, data, state.beta, state.sigma * state.sigma, rng);
-      tuneSlice(state, d, siteSd, phase, iteration);
+      tuneSlice(state, scale, previousSigma, phase, iteration);
       return state;
     },
     record(state, out, stride, offset) {
