@@ -40,19 +40,27 @@ function median(values: number[]): number {
   return (v[Math.floor(h)] + v[Math.ceil(h)]) / 2;
 }
 
-/** Median over repeats of the mean time per quantity, in µs; also the median bulk ESS seen. */
-function time(phi: number, options: ScratchOptions = {}): { us: number; essBulk: number } {
+/**
+ * Median over repeats of the mean wall time per quantity, in µs, and the same for process CPU time
+ * (user + system; on a shared machine the wall time also counts time spent descheduled).
+ * Also the median bulk ESS seen.
+ */
+function time(phi: number, options: ScratchOptions = {}): { us: number; cpuUs: number; essBulk: number } {
   const quantities = Array.from({ length: QUANTITIES }, (_, q) => ar1Quantity(phi, q));
   const scratch = createScratch(CHAINS, DRAWS, options);
   const ess: number[] = [];
   for (const chains of quantities) ess.push(diagnoseQuantity(chains, scratch).essBulk); // warm-up
   const perQuantity: number[] = [];
+  const cpuPerQuantity: number[] = [];
   for (let r = 0; r < REPEATS; r++) {
+    const cpu = process.cpuUsage();
     const start = process.hrtime.bigint();
     for (const chains of quantities) diagnoseQuantity(chains, scratch);
     perQuantity.push(Number(process.hrtime.bigint() - start) / 1000 / QUANTITIES);
+    const used = process.cpuUsage(cpu);
+    cpuPerQuantity.push((used.user + used.system) / QUANTITIES);
   }
-  return { us: median(perQuantity), essBulk: median(ess) };
+  return { us: median(perQuantity), cpuUs: median(cpuPerQuantity), essBulk: median(ess) };
 }
 
 console.log(`diagnoseQuantity, ${CHAINS} chains × ${DRAWS} draws, median of ${REPEATS} repeats over ${QUANTITIES} quantities`);
@@ -63,9 +71,9 @@ const cases: Array<{ label: string; phi: number; options?: ScratchOptions }> = [
   { label: 'AR(1) phi = 0.995, no FFT', phi: 0.995, options: { fftFromLag: Infinity } },
 ];
 for (const c of cases) {
-  const { us, essBulk } = time(c.phi, c.options);
+  const { us, cpuUs, essBulk } = time(c.phi, c.options);
   console.log(
-    `${c.label.padEnd(28)} ${us.toFixed(0).padStart(6)} µs per quantity  ` +
+    `${c.label.padEnd(28)} ${us.toFixed(0).padStart(6)} µs per quantity (CPU ${cpuUs.toFixed(0)} µs)  ` +
       `(3,000 quantities: ${((us * 3000) / 1e6).toFixed(2)} s; median bulk ESS ${essBulk.toFixed(0)})`,
   );
 }

@@ -4,6 +4,7 @@ import { fileURLToPath } from 'node:url';
 import type { Command } from 'commander';
 import { EXIT } from '../errors.js';
 import { describeOutcome, fitAndReport } from './fit.js';
+import { reportAndTell } from './report.js';
 
 /** The bundled demos: every `data-demo/<name>/config.yaml` of the package. */
 export function demoConfigs(): Array<{ name: string; config: string }> {
@@ -23,7 +24,7 @@ export function demoCommand(program: Command): void {
     .summary('run the bundled demos end to end')
     .description(
       'Fits every bundled demo (invented regions and districts) and leaves one run folder per\n' +
-        'demo under --out, each with its estimates and report. A quick way to see what a run gives.',
+        'demo under --out, each with its estimates and its report (HTML and PDF). A quick way to see what a run gives.',
     )
     .action(async (opts: { out: string }) => {
       let worst: number = EXIT.ok;
@@ -31,6 +32,8 @@ export function demoCommand(program: Command): void {
         const outcome = await fitAndReport(demo.config, resolve(opts.out, demo.name));
         process.stdout.write(`${demo.name}: ${describeOutcome(outcome)}`);
         if (!outcome.converged) worst = EXIT.notConverged;
+        const reported = await reportAndTell(outcome.runDir);
+        if (reported !== EXIT.ok && worst === EXIT.ok) worst = reported;
       }
       process.exitCode = worst;
     });

@@ -8,6 +8,7 @@ import { EXIT, UserError } from '../errors.js';
 import { VERSION } from '../version.js';
 import { demoCommand } from './demo.js';
 import { fitCommand } from './fit.js';
+import { reportCommand } from './report.js';
 import { validateCommand } from './validate.js';
 
 function buildProgram(): Command {
@@ -23,6 +24,7 @@ function buildProgram(): Command {
     .exitOverride();
   validateCommand(program);
   fitCommand(program);
+  reportCommand(program);
   demoCommand(program);
   return program;
 }

@@ -96,22 +96,7 @@ export function inverseQuadraticForm(
  * row, each entry read before it is overwritten), so no work buffer is needed. `out` may be `l`.
  */
 export function choleskyInverse(l: Float64Array, p: number, out: Float64Array): void {
-  if (out !== l) {
-    for (let i = 0; i < p; i++) {
-      for (let j = 0; j <= i; j++) out[i * p + j] = l[i * p + j];
-    }
-  }
-  // M = L⁻¹ in the lower triangle of out, column by column.
-  for (let j = 0; j < p; j++) {
-    const mjj = 1 / out[j * p + j];
-    out[j * p + j] = mjj;
-    for (let i = j + 1; i < p; i++) {
-      // M_ij = −(Σ_{k=j}^{i−1} L_ik M_kj) / L_ii; L_ij (k = j) is read before M_ij replaces it.
-      let s = out[i * p + j] * mjj;
-      for (let k = j + 1; k < i; k++) s += out[i * p + k] * out[k * p + j];
-      out[i * p + j] = -s / out[i * p + i];
-    }
-  }
+  lowerTriangularInverse(l, p, out);
   // A⁻¹_ij = Σ_{k ≥ i} M_ki M_kj for j ≤ i; rows ≥ i of M are still intact when row i is formed.
   for (let i = 0; i < p; i++) {
     for (let j = 0; j <= i; j++) {
@@ -143,4 +128,23 @@ export function solveLowerInPlace(l: Float64Array, p: number, b: Float64Array): 
 /** Solves Lᵀ x = z in place (z ← L⁻ᵀ z), L lower triangular. */
 export function solveUpperTransposedInPlace(l: Float64Array, p: number, z: Float64Array): void {
   backSolve(l, p, z, z);
+}
+
+/**
+ * Inverse of a lower-triangular matrix, M = L⁻¹ (lower triangular), column by column
+ * (Golub & Van Loan 2013 §3.1, recalled). Writes the lower triangle of `out` and zeros the
+ * strict upper triangle. `out` may be `l`.
+ */
+export function lowerTriangularInverse(l: Float64Array, p: number, out: Float64Array): void {
+  if (out !== l) out.set(l.subarray(0, p * p));
+  for (let j = 0; j < p; j++) {
+    const mjj = 1 / out[j * p + j];
+    out[j * p + j] = mjj;
+    for (let i = j + 1; i < p; i++) {
+      let s = out[i * p + j] * mjj;
+      for (let k = j + 1; k < i; k++) s += out[i * p + k] * out[k * p + j];
+      out[i * p + j] = -s / out[i * p + i];
+    }
+  }
+  for (let i = 0; i < p; i++) for (let j = i + 1; j < p; j++) out[i * p + j] = 0;
 }

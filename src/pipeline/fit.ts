@@ -49,6 +49,21 @@ async function sha256File(path: string): Promise<string> {
   return createHash('sha256').update(await readFile(path)).digest('hex');
 }
 
+/** The boundary file of the report, fingerprinted like the data (it is an input of the report). */
+async function mapFingerprint(settings: Settings, onWarning?: (message: string) => void): Promise<FileFingerprint | null> {
+  const file = settings.report.map?.file;
+  if (!file) return null;
+  try {
+    const bytes = await readFile(file);
+    const parsed = JSON.parse(bytes.toString('utf8')) as { features?: unknown[] };
+    const rows = Array.isArray(parsed.features) ? parsed.features.length : 0;
+    return { role: 'map', path: file, rows, sha256: createHash('sha256').update(bytes).digest('hex') };
+  } catch (error) {
+    onWarning?.(`report.map.file ${file}: ${(error as Error).message.split('\n')[0]}; the report will have no maps`);
+    return null;
+  }
+}
+
 export async function runFit(options: FitOptions): Promise<FitOutcome> {
   const clock = performance.now();
   const lap = (): number => {
@@ -61,6 +76,8 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   const { settings, warnings } = await loadConfig(options.configPath);
   warnings.forEach((w) => options.onWarning?.(w));
   const { data, files } = await loadAreaData(settings);
+  const map = await mapFingerprint(settings, options.onWarning);
+  if (map) files.push(map);
   const configSha256 = await sha256File(settings.config_path);
   const timingsMs: Record<string, number> = { read: lap() };
 
