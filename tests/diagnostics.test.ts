@@ -11,6 +11,7 @@ import {
   type DetailedDiagnostics,
 } from '../src/diagnostics/convergence.js';
 import { normalQuantile } from '../src/diagnostics/normal-quantile.js';
+import { SortOrder } from '../src/diagnostics/sort-order.js';
 
 // ---------------------------------------------------------------------------------------------
 // Seeded generators local to this file.
@@ -338,6 +339,34 @@ describe('normalQuantile (Wichura 1988, AS 241)', () => {
     for (const p of [1e-4, 0.003, 0.02, 0.1, 0.33, 0.5, 0.71, 0.9, 0.999]) {
       expect(Math.abs(phiCdf(normalQuantile(p)) - p)).toBeLessThan(1e-13);
     }
+  });
+});
+
+describe('SortOrder (radix sort with repair and fallback)', () => {
+  function check(values: number[]): void {
+    const v = Float64Array.from(values);
+    const so = new SortOrder(v.length + 3); // capacity larger than needed on purpose
+    so.compute(v, v.length);
+    const expected = values.slice().sort((a, b) => a - b);
+    const seen = new Set<number>();
+    for (let p = 0; p < v.length; p++) {
+      expect(so.sorted[p]).toBe(v[so.order[p]]);
+      expect(so.sorted[p] === expected[p], `position ${p}`).toBe(true); // -0 and 0 count as equal
+      seen.add(so.order[p]);
+    }
+    expect(seen.size).toBe(v.length); // a permutation
+  }
+  it('sorts continuous, tied, signed-zero, constant, tiny and outlier-stretched inputs', () => {
+    const u = mulberry32(99);
+    check(Array.from({ length: 5000 }, () => u() - 0.5));
+    check(Array.from({ length: 3000 }, () => Math.floor(u() * 7) - 3)); // heavy ties
+    check([0, -0, 0, -0, 1e-300, -1e-300, 5e-324, -5e-324]);
+    check(Array.from({ length: 100 }, () => 4.25)); // constant
+    check([]);
+    check([3]);
+    check(Array.from({ length: 2000 }, (_, i) => (i === 5 ? 1e200 : i === 6 ? -1e200 : u()))); // comparison-sort fallback
+    check(Array.from({ length: 2000 }, (_, i) => (i === 5 ? Number.MAX_VALUE : i === 6 ? -Number.MAX_VALUE : u()))); // range overflows
+    check(Array.from({ length: 4000 }, () => 1 + (u() - 0.5) * 1e-12)); // concentrated
   });
 });
 

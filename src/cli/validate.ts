@@ -1,6 +1,6 @@
 import type { Command } from 'commander';
 import { loadConfig } from '../config/load.js';
-import { loadAreaData } from '../data/area.js';
+import { prepareFit } from '../pipeline/prepare.js';
 
 export function validateCommand(program: Command): void {
   program
@@ -15,12 +15,13 @@ export function validateCommand(program: Command): void {
     .action(async (configPath: string) => {
       const { settings, warnings } = await loadConfig(configPath);
       for (const w of warnings) process.stderr.write(`shrinkwell: warning: ${w}\n`);
-      const { data, files } = await loadAreaData(settings);
-      const sampled = data.hasData.reduce((a, b) => a + b, 0);
+      const prepared = await prepareFit(settings);
+      const { sites, files } = prepared;
+      const sampled = sites.sampled.reduce((a, b) => a + b, 0);
       process.stdout.write(
-        `${configPath}: ok — ${settings.model.kind} model, ${data.m} sites (${sampled} with a sample, ` +
-          `${data.m - sampled} synthetic), coefficients: ${data.coefficientNames.join(', ')}\n` +
-          `sampling variances: ${data.varianceNote}\n` +
+        `${configPath}: ok — ${settings.model.kind} model, ${sites.m} sites (${sampled} with a sample, ` +
+          `${sites.m - sampled} synthetic), coefficients: ${prepared.coefficientNames.join(', ')}\n` +
+          (prepared.varianceNote ? `sampling variances: ${prepared.varianceNote}\n` : '') +
           files.map((f) => `input ${f.role}: ${f.path} (${f.rows} rows, sha256 ${f.sha256.slice(0, 12)}…)\n`).join(''),
       );
     });

@@ -67,8 +67,6 @@ export class DiagnosticsScratch {
   readonly middles: Float64Array;
   readonly folded: Float64Array;
   readonly foldedSource: Int32Array;
-  /** positionOf[i] = position of split draw i in sorted order (inverse permutation). */
-  readonly positionOf: Int32Array;
   readonly bulkScoreAt: Float64Array;
   readonly tailScoreAt: Float64Array;
   readonly zBulk: Float64Array;
@@ -98,7 +96,6 @@ export class DiagnosticsScratch {
     this.middles = new Float64Array(oddLength ? nChains : 0);
     this.folded = new Float64Array(s);
     this.foldedSource = new Int32Array(s);
-    this.positionOf = new Int32Array(s);
     this.bulkScoreAt = new Float64Array(s);
     this.tailScoreAt = new Float64Array(s);
     this.zBulk = new Float64Array(s);
@@ -212,19 +209,19 @@ export function diagnoseQuantity(chains: readonly Float64Array[], scratch?: Diag
   foldSorted(sorted, s, median, sc.folded, sc.foldedSource);
   scoreTieGroups(sc.folded, s, sc.blom, tailAt, sc.foldedSource);
 
-  // Back to split layout through the inverse permutation (gathers are cheaper than scatters).
-  const positionOf = sc.positionOf;
-  for (let p = 0; p < s; p++) positionOf[order[p]] = p;
+  // Back to split layout: one scatter through the sorting permutation.
   const zBulk = sc.zBulk;
   const zTail = sc.zTail;
+  for (let p = 0; p < s; p++) {
+    const i = order[p];
+    zBulk[i] = bulkAt[p];
+    zTail[i] = tailAt[p];
+  }
   const i05 = sc.indicator05;
   const i95 = sc.indicator95;
   let count05 = 0;
   let count95 = 0;
   for (let i = 0; i < s; i++) {
-    const p = positionOf[i];
-    zBulk[i] = bulkAt[p];
-    zTail[i] = tailAt[p];
     const v = raw[i];
     const below05 = v <= q05 ? 1 : 0;
     const below95 = v <= q95 ? 1 : 0;

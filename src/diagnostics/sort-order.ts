@@ -1,3 +1,5 @@
+const KEY_MAX = 16777215; // 2^24 - 1
+
 /**
  * The sorting permutation of a vector of finite doubles: order[p] = index of the p-th smallest.
  *
@@ -9,8 +11,6 @@
  * When the values pile up in few keys (extreme outliers stretch the range), the sweep's work is
  * capped and the permutation is recomputed by a comparison sort — exact either way.
  */
-const KEY_MAX = 16777215; // 2^24 - 1
-
 export class SortOrder {
   /** order[p] = index of the p-th smallest value (ties in index order on the fast path). */
   readonly order: Int32Array;
@@ -38,6 +38,14 @@ export class SortOrder {
       const v = values[i];
       if (v < min) min = v;
       if (v > max) max = v;
+    }
+    if (max === min) {
+      // All equal (or len <= 1): identity order.
+      for (let i = 0; i < len; i++) {
+        this.order[i] = i;
+        this.sorted[i] = values[i];
+      }
+      return;
     }
     const scale = KEY_MAX / (max - min);
     if (!(scale < Number.POSITIVE_INFINITY) || !this.radixThenRepair(values, len, min, scale)) {

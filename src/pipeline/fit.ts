@@ -7,9 +7,9 @@ import { readFile } from 'node:fs/promises';
 import { performance } from 'node:perf_hooks';
 import { loadConfig } from '../config/load.js';
 import type { Settings } from '../config/types.js';
-import { loadAreaData } from '../data/area.js';
-import type { AreaData, FileFingerprint } from '../data/types.js';
-import { areaQuantities } from '../models/area.js';
+import type { FileFingerprint } from '../data/types.js';
+import type { PreparedFit } from '../models/prepared.js';
+import { prepareFit } from './prepare.js';
 import { drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
 import { writeRunFolder } from '../output/run-folder.js';
 import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
@@ -75,22 +75,16 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   let lastLap = clock;
   const { settings, warnings } = await loadConfig(options.configPath);
   warnings.forEach((w) => options.onWarning?.(w));
-  const { data, files } = await loadAreaData(settings);
+  const prepared = await prepareFit(settings);
   const map = await mapFingerprint(settings, options.onWarning);
-  if (map) files.push(map);
+  if (map) prepared.files.push(map);
   const configSha256 = await sha256File(settings.config_path);
   const timingsMs: Record<string, number> = { read: lap() };
 
   const { sampling } = settings;
   const threads = Math.min(options.threads ?? sampling.threads ?? defaultThreads(sampling.chains), sampling.chains);
   const chains = await sampleChains({
-    spec: {
-      kind: 'area',
-      data,
-      coefficients: settings.model.priors.coefficients,
-      siteSd: settings.model.priors.site_sd,
-      method: sampling.method,
-    },
+    spec: prepared.spec,
     plan: { warmup: sampling.warmup, draws: sampling.draws, seed: sampling.seed },
     chains: sampling.chains,
     threads,
@@ -98,14 +92,15 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   });
   timingsMs.sample = lap();
 
-  const names = areaQuantities(data);
+  const names = prepared.quantities;
   const summaries = await summarizeChains(chains, names, settings.interval, threads);
   const byName = new Map(summaries.map((s) => [s.name, s]));
   const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
-  const sites = siteEstimates(data, byName, pooledDraws(chains, names.indexOf('site_sd')), settings, gate);
+  const weights = prepared.weightDirect((quantity) => pooledDraws(chains, names.indexOf(quantity)));
+  const sites = siteEstimates(prepared.sites, byName, weights, settings.reliability, gate);
   timingsMs.summarize = lap();
 
-  const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, data, files, {
+  const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
     names, chains, summaries, sites, gate, threads, configSha256, command: options.command, timingsMs,
   }));
   timingsMs.write = lap();
@@ -127,8 +122,7 @@ interface FitProducts {
 
 function runFolderFiles(
   settings: Settings,
-  data: AreaData,
-  inputs: FileFingerprint[],
+  prepared: PreparedFit,
   r: FitProducts,
 ): Map<string, string | Uint8Array> {
   const draws = drawsFiles(r.names, r.chains);
@@ -140,8 +134,8 @@ function runFolderFiles(
       'summary.json',
       summaryJson({
         settings,
-        coefficientNames: data.coefficientNames,
-        varianceNote: data.varianceNote,
+        coefficientNames: prepared.coefficientNames,
+        varianceNote: prepared.varianceNote,
         summaries: r.summaries,
         sites: r.sites,
         gate: r.gate,
@@ -155,7 +149,7 @@ function runFolderFiles(
         version: VERSION,
         command: r.command,
         configSha256: r.configSha256,
-        inputs,
+        inputs: prepared.files,
         threads: r.threads,
         timingsMs: r.timingsMs,
         createdAt: new Date().toISOString(),

@@ -54,7 +54,7 @@ import type { CoefficientPrior, ScalePrior } from '../config/types.js';
 import type { AreaData } from '../data/types.js';
 import { normalQuantile } from '../diagnostics/normal-quantile.js';
 import { UserError } from '../errors.js';
-import { cholesky, choleskyInverse, choleskyLogDet, choleskySolve } from '../models/linalg.js';
+import { backSolve, cholesky, choleskyLogDet, forwardSolve, lowerTriangularInverse } from '../models/linalg.js';
 
 /** Priors of the area model: fixed on β, learned hyperprior on σ_u. */
 export interface AreaPriors {
@@ -93,9 +93,9 @@ export const DEFAULT_PROBS: readonly number[] = [0.025, 0.25, 0.5, 0.75, 0.975];
 /** How far (in log density) the grid reaches on both sides of the mode. */
 const LOG_DROP = 40;
 /** Largest grid spacing in t = log σ. */
-const MAX_SPACING = 0.05;
+const MAX_SPACING = 0.2;
 /** Grid spacing as a fraction of the posterior half-width of t at the mode. */
-const SPACING_PER_SCALE = 1 / 5;
+const SPACING_PER_SCALE = 1 / 2;
 /** Keeps σ² = e^{2t} well inside double range. */
 const T_LIMIT = 340;
 const MAX_GRID_POINTS = 400_000;
@@ -112,24 +112,37 @@ interface Marginal {
   p: number;
   /** Packed lower-triangle length p(p+1)/2. */
   np: number;
-  y: Float64Array;
   psi: Float64Array;
-  /** n × p, sites with data only. */
-  X: Float64Array;
+  psiMin: number;
+  psiMax: number;
   /** n × np: x_ij x_il for l ≤ j, packed row by row. */
   XX: Float64Array;
-  /** n × p: x_ij y_i. */
+  /** n × p: x_ij (y_i − shift). */
   Xy: Float64Array;
+  /** (y_i − shift)². */
+  yy: Float64Array;
+  /**
+   * y is centred at its precision-weighted mean when column 0 is the intercept, so that
+   * Q = c − bᵀP⁻¹b does not cancel; β̂_0 is shifted back after the solve.
+   */
+  shift: number;
   /** Prior precision λ of each coefficient (0 for flat). */
   lambda: number;
-  priorMean: number;
+  /** Prior means in the shifted coordinates (intercept: μ₀ − shift). */
+  priorMeans: Float64Array;
+  /** λ Σ_j priorMeans_j². */
+  priorQuad: number;
   prior: ScalePrior;
-  // Scratch, overwritten by every evaluation: P's factor L, β̂, weights.
+  // Scratch, overwritten by every evaluation: P's factor L and β̂.
   packed: Float64Array;
   L: Float64Array;
   b: Float64Array;
   beta: Float64Array;
-  w: Float64Array;
+}
+
+function hasInterceptColumn(data: AreaData): boolean {
+  for (let i = 0; i < data.m; i++) if (data.X[i * data.p] !== 1) return false;
+  return data.p > 0;
 }
 
 function prepareMarginal(data: AreaData, priors: AreaPriors): Marginal {
@@ -137,45 +150,63 @@ function prepareMarginal(data: AreaData, priors: AreaPriors): Marginal {
   validateData(data);
   const { m, p } = data;
   let n = 0;
-  for (let i = 0; i < m; i++) if (data.hasData[i]) n++;
+  let weightSum = 0;
+  let weightedY = 0;
+  for (let i = 0; i < m; i++) {
+    if (!data.hasData[i]) continue;
+    n++;
+    weightSum += 1 / data.variance[i];
+    weightedY += data.direct[i] / data.variance[i];
+  }
+  const shift = n > 0 && hasInterceptColumn(data) ? weightedY / weightSum : 0;
   const np = (p * (p + 1)) / 2;
-  const y = new Float64Array(n);
   const psi = new Float64Array(n);
-  const X = new Float64Array(n * p);
   const XX = new Float64Array(n * np);
   const Xy = new Float64Array(n * p);
+  const yy = new Float64Array(n);
   let k = 0;
   for (let i = 0; i < m; i++) {
     if (!data.hasData[i]) continue;
-    y[k] = data.direct[i];
+    const y = data.direct[i] - shift;
     psi[k] = data.variance[i];
+    yy[k] = y * y;
     let c = 0;
     for (let j = 0; j < p; j++) {
       const xij = data.X[i * p + j];
-      X[k * p + j] = xij;
-      Xy[k * p + j] = xij * y[k];
+      Xy[k * p + j] = xij * y;
       for (let l = 0; l <= j; l++) XX[k * np + c++] = xij * data.X[i * p + l];
     }
     k++;
   }
   const coef = priors.coefficients;
+  const lambda = coef.kind === 'normal' ? 1 / (coef.sd * coef.sd) : 0;
+  const priorMeans = new Float64Array(p);
+  let priorQuad = 0;
+  if (coef.kind === 'normal') {
+    for (let j = 0; j < p; j++) {
+      priorMeans[j] = coef.mean - (j === 0 ? shift : 0);
+      priorQuad += lambda * priorMeans[j] * priorMeans[j];
+    }
+  }
   return {
     n,
     p,
     np,
-    y,
     psi,
-    X,
+    psiMin: psi.reduce((a, v) => Math.min(a, v), Infinity),
+    psiMax: psi.reduce((a, v) => Math.max(a, v), 0),
     XX,
     Xy,
-    lambda: coef.kind === 'normal' ? 1 / (coef.sd * coef.sd) : 0,
-    priorMean: coef.kind === 'normal' ? coef.mean : 0,
+    yy,
+    shift,
+    lambda,
+    priorMeans,
+    priorQuad,
     prior: priors.site_sd,
     packed: new Float64Array(np),
     L: new Float64Array(p * p),
     b: new Float64Array(p),
     beta: new Float64Array(p),
-    w: new Float64Array(n),
   };
 }
 
@@ -192,46 +223,49 @@ function logPriorVariance(prior: ScalePrior, t: number): number {
 }
 
 /**
- * −½ Σ log(σ² + ψ_i) − ½ log|P| − ½ Q at σ² = e^{2t}; leaves L (P = LLᵀ) and β̂ in the scratch.
- * One pass over the sites accumulates P and Xᵀ V⁻¹ y, a second forms Q from residuals (no
- * cancellation between yᵀV⁻¹y and β̂ᵀPβ̂). −Infinity if P is not positive definite.
+ * −½ Σ log(σ² + ψ_i) − ½ log|P| − ½ Q at σ²; leaves L (P = LLᵀ) and β̂ in the scratch.
+ * One pass over the sites; logs are taken of products of 8 factors where that cannot over- or
+ * underflow. −Infinity if P is not positive definite.
  */
 function logIntegratedLikelihood(g: Marginal, sigma2: number): number {
-  const { n, p, np, psi, XX, Xy, X, y, packed, L, b, beta, w } = g;
+  const { n, p, np, psi, XX, Xy, yy, packed, L, b, beta } = g;
   packed.fill(0);
   b.fill(0);
   let logDetV = 0;
+  let c = 0;
+  const chunked = sigma2 + g.psiMax < 1e30 && g.psiMin > 1e-30;
+  let product = 1;
   for (let i = 0; i < n; i++) {
     const v = sigma2 + psi[i];
-    const wi = 1 / v;
-    w[i] = wi;
-    logDetV += Math.log(v);
+    const w = 1 / v;
+    if (chunked) {
+      product *= v;
+      if ((i & 7) === 7) {
+        logDetV += Math.log(product);
+        product = 1;
+      }
+    } else logDetV += Math.log(v);
+    c += w * yy[i];
     const o = i * np;
-    for (let c = 0; c < np; c++) packed[c] += wi * XX[o + c];
+    for (let k = 0; k < np; k++) packed[k] += w * XX[o + k];
     const oy = i * p;
-    for (let j = 0; j < p; j++) b[j] += wi * Xy[oy + j];
+    for (let j = 0; j < p; j++) b[j] += w * Xy[oy + j];
   }
-  let c = 0;
+  logDetV += Math.log(product);
+  let k = 0;
   for (let j = 0; j < p; j++) {
-    for (let l = 0; l <= j; l++) L[j * p + l] = packed[c++];
+    for (let l = 0; l <= j; l++) L[j * p + l] = packed[k++];
     L[j * p + j] += g.lambda;
-    b[j] += g.lambda * g.priorMean;
+    b[j] += g.lambda * g.priorMeans[j];
   }
   if (!cholesky(L, p, L)) return -Infinity;
-  choleskySolve(L, p, b, beta);
-  let q = 0;
-  for (let i = 0; i < n; i++) {
-    let r = y[i];
-    const o = i * p;
-    for (let j = 0; j < p; j++) r -= X[o + j] * beta[j];
-    q += w[i] * r * r;
-  }
-  if (g.lambda > 0) {
-    for (let j = 0; j < p; j++) {
-      const d = beta[j] - g.priorMean;
-      q += g.lambda * d * d;
-    }
-  }
+  // Q = c + λ‖μ₀‖² − bᵀP⁻¹b with bᵀP⁻¹b = ‖L⁻¹b‖².
+  forwardSolve(L, p, b, beta);
+  let fitted = 0;
+  for (let j = 0; j < p; j++) fitted += beta[j] * beta[j];
+  backSolve(L, p, beta, beta);
+  beta[0] += g.shift;
+  const q = Math.max(0, c + g.priorQuad - fitted);
   return -0.5 * (logDetV + choleskyLogDet(L, p) + q);
 }
 
@@ -379,13 +413,6 @@ function heavyTailError(g: Marginal): UserError {
 // ---------------------------------------------------------------------------------------------
 // The grid in t = log σ
 
-interface Grid {
-  t0: number;
-  h: number;
-  /** log p(t | y) − max at t0 + k h. */
-  logDensity: Float64Array;
-}
-
 /** Golden-section maximisation of a unimodal function on [a, b]. */
 function maximiseOn(f: (t: number) => number, a: number, b: number): { t: number; value: number } {
   const r = (Math.sqrt(5) - 1) / 2;
@@ -393,7 +420,7 @@ function maximiseOn(f: (t: number) => number, a: number, b: number): { t: number
   let x2 = a + r * (b - a);
   let f1 = f(x1);
   let f2 = f(x2);
-  while (b - a > 1e-9 * Math.max(1, Math.abs(a))) {
+  while (b - a > 1e-5) {
     if (f1 < f2) {
       a = x1;
       x1 = x2;
@@ -415,17 +442,9 @@ function maximiseOn(f: (t: number) => number, a: number, b: number): { t: number
 function scanWindow(g: Marginal): [number, number] {
   const scales: number[] = [];
   if (g.n > 0) {
-    let lo = Infinity;
-    let hi = 0;
-    let mean = 0;
-    for (let i = 0; i < g.n; i++) {
-      lo = Math.min(lo, g.psi[i]);
-      hi = Math.max(hi, g.psi[i]);
-      mean += g.y[i] / g.n;
-    }
     let spread = 0;
-    for (let i = 0; i < g.n; i++) spread += (g.y[i] - mean) ** 2 / g.n;
-    scales.push(0.5 * Math.log(lo), 0.5 * Math.log(hi));
+    for (let i = 0; i < g.n; i++) spread += g.yy[i] / g.n;
+    scales.push(0.5 * Math.log(g.psiMin), 0.5 * Math.log(g.psiMax));
     if (spread > 0) scales.push(0.5 * Math.log(spread));
   }
   const s = g.prior;
@@ -435,8 +454,9 @@ function scanWindow(g: Marginal): [number, number] {
   return [Math.max(-T_LIMIT, Math.min(...scales) - 15), Math.min(T_LIMIT, Math.max(...scales) + 15)];
 }
 
+/** Coarse scan (widened while the best point sits on an edge), then golden section. */
 function findMode(f: (t: number) => number, window: [number, number], g: Marginal): { t: number; value: number } {
-  const step = 0.25;
+  const step = 0.5;
   let [lo, hi] = window;
   for (let attempt = 0; attempt < 40; attempt++) {
     let best = -Infinity;
@@ -458,13 +478,13 @@ function findMode(f: (t: number) => number, window: [number, number], g: Margina
   throw heavyTailError(g);
 }
 
-/** Distance from the mode to where the log density has dropped by ½ (≈ one sd if normal). */
+/** Distance from the mode to where the log density has dropped by ½ (≈ one sd if normal), to ±2%. */
 function halfWidth(f: (t: number) => number, mode: number, top: number, direction: 1 | -1): number {
-  let d = 1e-4;
+  let d = 1e-3;
   while (d < 2 * T_LIMIT && f(mode + direction * d) > top - 0.5) d *= 2;
   let a = d / 2;
   let b = d;
-  for (let k = 0; k < 12; k++) {
+  for (let k = 0; k < 6; k++) {
     const c = 0.5 * (a + b);
     if (f(mode + direction * c) > top - 0.5) a = c;
     else b = c;
@@ -472,34 +492,55 @@ function halfWidth(f: (t: number) => number, mode: number, top: number, directio
   return 0.5 * (a + b);
 }
 
+/** The grid of t = log σ with, at every point, the factor of P and β̂ there. */
+interface Grid {
+  t0: number;
+  h: number;
+  /** log p(t | y) − max at t0 + k h. */
+  logDensity: Float64Array;
+  /** G × p × p: Cholesky factor L of P at each point. */
+  factors: Float64Array;
+  /** G × p: β̂ at each point. */
+  betas: Float64Array;
+}
+
 /**
  * Uniform grid through the mode, out to a log-density drop of ≥ LOG_DROP on both sides; on the
  * right also until σ²·density has dropped as far (or 60 units past the mode, where the power-law
  * tail correction takes over), so second moments are covered.
  */
-function buildGrid(f: (t: number) => number, mode: number, top: number, h: number, kappa: number, g: Marginal): Grid {
-  const right: number[] = [];
-  for (let k = 1; ; k++) {
-    const t = mode + k * h;
-    if (t > T_LIMIT || right.length > MAX_GRID_POINTS) throw heavyTailError(g);
-    const v = f(t) - top;
-    right.push(v);
-    const done = v < -LOG_DROP && (kappa <= 2 || v + 2 * (t - mode) < -LOG_DROP || t - mode > 60);
-    if (done) break;
+function buildGrid(g: Marginal, mode: number, top: number, h: number, kappa: number): Grid {
+  const p = g.p;
+  const values: number[][] = [[], []];
+  const factors: Float64Array[][] = [[], []];
+  const betas: Float64Array[][] = [[], []];
+  for (const side of [0, 1]) {
+    const direction = side === 0 ? -1 : 1;
+    for (let k = side === 0 ? 1 : 0; ; k++) {
+      const t = mode + direction * k * h;
+      if (Math.abs(t) > T_LIMIT || values[side].length > MAX_GRID_POINTS) throw heavyTailError(g);
+      const v = logPosteriorLogSigma(g, t) - top;
+      values[side].push(v);
+      factors[side].push(g.L.slice(0, p * p));
+      betas[side].push(g.beta.slice(0, p));
+      const farEnough =
+        side === 0 || kappa <= 2 || v + 2 * (t - mode) < -LOG_DROP || t - mode > 60;
+      if (v < -LOG_DROP && farEnough) break;
+    }
   }
-  const left: number[] = [];
-  for (let k = 1; ; k++) {
-    const t = mode - k * h;
-    if (t < -T_LIMIT || left.length > MAX_GRID_POINTS) throw heavyTailError(g);
-    const v = f(t) - top;
-    left.push(v);
-    if (v < -LOG_DROP) break;
+  const left = values[0].length;
+  const G = left + values[1].length;
+  const logDensity = new Float64Array(G);
+  const allFactors = new Float64Array(G * p * p);
+  const allBetas = new Float64Array(G * p);
+  for (let k = 0; k < G; k++) {
+    const side = k < left ? 0 : 1;
+    const index = k < left ? left - 1 - k : k - left;
+    logDensity[k] = values[side][index];
+    allFactors.set(factors[side][index], k * p * p);
+    allBetas.set(betas[side][index], k * p);
   }
-  const logDensity = new Float64Array(left.length + 1 + right.length);
-  for (let k = 0; k < left.length; k++) logDensity[left.length - 1 - k] = left[k];
-  logDensity[left.length] = 0;
-  for (let k = 0; k < right.length; k++) logDensity[left.length + 1 + k] = right[k];
-  return { t0: mode - left.length * h, h, logDensity };
+  return { t0: mode - left * h, h, logDensity, factors: allFactors, betas: allBetas };
 }
 
 /** Largest h²|ℓ''| over grid points that carry mass: small means the grid resolves the shape. */
@@ -516,13 +557,15 @@ function roughness(grid: Grid): number {
 // ---------------------------------------------------------------------------------------------
 // Normal distribution function and mixtures
 
+const INV_SQRT_2PI = 0.398942280401432677939946059934;
+
 /**
- * Standard normal distribution function Φ(x), accurate to about 1e-15 relative in both tails.
- * W. J. Cody's rational Chebyshev approximations (Cody 1969, Math. Comp. 23, 631–637; as
- * packaged in Cody 1993, ACM TOMS 19(1), Algorithm 715 — coefficients recalled, verified in the
- * tests against an independent series/continued-fraction evaluation).
+ * Φ(x) given e = exp(−x²/2): W. J. Cody's rational Chebyshev approximations (Cody 1969,
+ * Math. Comp. 23, 631–637, as packaged in Cody 1993, ACM TOMS 19(1), Algorithm 715 —
+ * coefficients recalled, verified in the tests against an independent series/continued-fraction
+ * evaluation). The tails are e · R(|x|) for rational R.
  */
-export function normalCdf(x: number): number {
+function normalCdfGivenExp(x: number, e: number): number {
   const y = Math.abs(x);
   if (y <= 0.67448975) {
     const xsq = x * x;
@@ -536,7 +579,7 @@ export function normalCdf(x: number): number {
     den = (den + 10260.932208618978205) * xsq;
     return 0.5 + (x * (num + 18154.981253343561249)) / (den + 45507.789335026729956);
   }
-  let tail: number;
+  let ratio: number;
   if (y <= 5.656854249492380195206754896838) {
     let num = 1.0765576773720192317e-8 * y;
     let den = y;
@@ -554,7 +597,7 @@ export function normalCdf(x: number): number {
     den = (den + 34900.952721145977266) * y;
     num = (num + 11602.651437647350124) * y;
     den = (den + 38912.003286093271411) * y;
-    tail = (num + 9842.7148383839780218) / (den + 19685.429676859990727);
+    ratio = (num + 9842.7148383839780218) / (den + 19685.429676859990727);
   } else if (y < 38.5) {
     const xsq = 1 / (x * x);
     let num = 0.02307344176494017303 * xsq;
@@ -567,33 +610,40 @@ export function normalCdf(x: number): number {
     den = (den + 0.0659881378689285515) * xsq;
     num = (num + 0.001421619193227893466) * xsq;
     den = (den + 0.00378239633202758244) * xsq;
-    tail = (0.398942280401432677939946059934 - (xsq * (num + 2.9112874951168792e-5)) / (den + 7.29751555083966205e-5)) / y;
+    ratio = (INV_SQRT_2PI - (xsq * (num + 2.9112874951168792e-5)) / (den + 7.29751555083966205e-5)) / y;
   } else {
     return x > 0 ? 1 : 0;
   }
-  // exp(−y²/2) split so that the large part is exact in floating point (Cody's device).
-  const ys = Math.trunc(y * 16) / 16;
-  const del = (y - ys) * (y + ys);
-  const upper = Math.exp(-ys * ys * 0.5) * Math.exp(-del * 0.5) * tail;
+  const upper = e * ratio;
   return x > 0 ? 1 - upper : upper;
 }
 
-const INV_SQRT_2PI = 0.398942280401432677939946059934;
+/**
+ * Standard normal distribution function Φ(x), accurate to about 1e-15 relative in both tails
+ * (Cody 1993, Algorithm 715; see {@link normalCdfGivenExp}). exp(−x²/2) is formed as
+ * exp(−u²/2)·exp(−(x−u)(x+u)/2) with u = x rounded to 1/16, so that the large part is exact.
+ */
+export function normalCdf(x: number): number {
+  const y = Math.abs(x);
+  const u = Math.trunc(y * 16) / 16;
+  return normalCdfGivenExp(x, Math.exp(-u * u * 0.5) * Math.exp(-(y - u) * (y + u) * 0.5));
+}
+
+/** Mixture components and weights (w sums to 1) in the first `count` entries. */
+interface Mixture {
+  count: number;
+  w: Float64Array;
+  mu: Float64Array;
+  sd: Float64Array;
+}
 
 /**
- * The q-quantile of Σ_k w_k N(μ_k, s_k²) (w summing to 1) by Newton's method on the CDF, kept
- * inside a bracket that tightens at every step and falls back to bisection (or to doubling
- * steps while the bracket is still open), until the step is below 1e-10 · scale.
+ * The q-quantile of Σ_k w_k N(μ_k, s_k²) by Halley's method on the CDF (cubic convergence, so
+ * two or three CDF evaluations from a Cornish–Fisher start), kept inside a bracket that tightens
+ * at every step with bisection as fallback, until the step is below 1e-10 · scale.
  */
-function mixtureQuantile(
-  q: number,
-  start: number,
-  scale: number,
-  count: number,
-  w: Float64Array,
-  mu: Float64Array,
-  sd: Float64Array,
-): number {
+function mixtureQuantile(q: number, start: number, scale: number, mix: Mixture): number {
+  const { count, w, mu, sd } = mix;
   const tol = QUANTILE_TOLERANCE * scale;
   let lo = -Infinity;
   let hi = Infinity;
@@ -602,18 +652,26 @@ function mixtureQuantile(
   for (let iter = 0; iter < 300; iter++) {
     let cdf = 0;
     let pdf = 0;
+    let slope = 0; // derivative of the pdf
     for (let k = 0; k < count; k++) {
       const s = sd[k];
       const z = (x - mu[k]) / s;
-      cdf += w[k] * normalCdf(z);
-      pdf += (w[k] * Math.exp(-0.5 * z * z)) / s;
+      const e = Math.exp(-0.5 * z * z);
+      cdf += w[k] * normalCdfGivenExp(z, e);
+      const d = (w[k] * e) / s;
+      pdf += d;
+      slope -= (d * z) / s;
     }
     pdf *= INV_SQRT_2PI;
+    slope *= INV_SQRT_2PI;
     const diff = cdf - q;
     if (diff === 0) return x;
     if (diff < 0) lo = x;
     else hi = x;
-    let next = x - diff / pdf;
+    let step = diff / pdf;
+    const halley = 1 - (0.5 * step * slope) / pdf;
+    if (halley > 0.5 && halley < 2) step /= halley;
+    let next = x - step;
     if (!(next > lo && next < hi)) {
       if (Number.isFinite(lo) && Number.isFinite(hi)) next = 0.5 * (lo + hi);
       else {
@@ -627,26 +685,40 @@ function mixtureQuantile(
   return x;
 }
 
-/** Mean, sd and quantiles of a normal mixture whose components are in (w, mu, sd). */
+/**
+ * Mean, sd and quantiles of a normal mixture. `tailSecondMoment` is added to the second moment
+ * (the part of E[θ²] beyond the grid; Infinity when it diverges).
+ */
 function summariseMixture(
-  count: number,
-  w: Float64Array,
-  mu: Float64Array,
-  sd: Float64Array,
+  mix: Mixture,
   probs: readonly number[],
   zs: readonly number[],
   tailSecondMoment: number,
 ): ExactSummary {
+  const { count, w, mu, sd } = mix;
   let mean = 0;
   for (let k = 0; k < count; k++) mean += w[k] * mu[k];
-  let second = 0;
+  let m2 = 0;
+  let m3 = 0;
+  let m4 = 0;
   for (let k = 0; k < count; k++) {
     const d = mu[k] - mean;
-    second += w[k] * (sd[k] * sd[k] + d * d);
+    const v = sd[k] * sd[k];
+    m2 += w[k] * (v + d * d);
+    m3 += w[k] * d * (d * d + 3 * v);
+    m4 += w[k] * (d * d * d * d + 6 * d * d * v + 3 * v * v);
   }
-  const gridSd = Math.sqrt(second);
-  const quantiles = probs.map((q, j) => mixtureQuantile(q, mean + gridSd * zs[j], gridSd, count, w, mu, sd));
-  return { mean, sd: Math.sqrt(second + tailSecondMoment), quantiles };
+  const gridSd = Math.sqrt(m2);
+  const skew = m3 / (m2 * gridSd);
+  const kurt = m4 / (m2 * m2) - 3;
+  const quantiles = probs.map((q, j) => {
+    // Cornish–Fisher start (Cornish & Fisher 1937; common practice), ignored if it runs wild.
+    const z = zs[j];
+    const cf = z + ((z * z - 1) * skew) / 6 + ((z * z * z - 3 * z) * kurt) / 24 - ((2 * z * z * z - 5 * z) * skew * skew) / 36;
+    const start = mean + gridSd * (Number.isFinite(cf) && Math.abs(cf - z) < 1 ? cf : z);
+    return mixtureQuantile(q, start, gridSd, mix);
+  });
+  return { mean, sd: Math.sqrt(m2 + tailSecondMoment), quantiles };
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -711,6 +783,17 @@ function logSigmaQuantiles(f: (t: number) => number, grid: Grid, probs: readonly
   });
 }
 
+/** Smallest ‖x_i‖² over all sites: with it, x_iᵀP⁻¹x_i ≥ ‖x_i‖²/trace(P). */
+function smallestRowNorm(data: AreaData): number {
+  let smallest = Infinity;
+  for (let i = 0; i < data.m; i++) {
+    let s = 0;
+    for (let j = 0; j < data.p; j++) s += data.X[i * data.p + j] ** 2;
+    smallest = Math.min(smallest, s);
+  }
+  return smallest;
+}
+
 /**
  * The exact posterior of the area model: σ_u, β and every θ_i, with means, sds and quantiles
  * at `probs`, and the posterior mean weight on each site's own data.
@@ -737,6 +820,7 @@ export function exactAreaPosterior(
   const kappa = tailExponent(g);
   checkProper(g, kappa);
   const { m, p } = data;
+  const pp = p * p;
 
   // Mode, scale and grid of t = log σ.
   const f = (t: number) => logPosteriorLogSigma(g, t);
@@ -744,10 +828,10 @@ export function exactAreaPosterior(
   const top = mode.value;
   const scale = Math.min(halfWidth(f, mode.t, top, -1), halfWidth(f, mode.t, top, 1));
   let h = Math.min(MAX_SPACING, SPACING_PER_SCALE * scale) * spacingFactor;
-  let grid = buildGrid(f, mode.t, top, h, kappa, g);
-  for (let refine = 0; refine < 8 && roughness(grid) > 1 / 16; refine++) {
+  let grid = buildGrid(g, mode.t, top, h, kappa);
+  for (let refine = 0; refine < 8 && roughness(grid) > 0.3; refine++) {
     h /= 2;
-    grid = buildGrid(f, mode.t, top, h, kappa, g);
+    grid = buildGrid(g, mode.t, top, h, kappa);
   }
   const G = grid.logDensity.length;
   const tAt = (k: number) => grid.t0 + k * h;
@@ -772,8 +856,7 @@ export function exactAreaPosterior(
     meanSigma += weight[k] * Math.exp(tAt(k));
     meanSigma2 += weight[k] * Math.exp(2 * tAt(k));
   }
-  if (kappa > 1) meanSigma += (densityEnd * Math.exp(tEnd)) / (kappa - 1);
-  else meanSigma = Infinity;
+  meanSigma = kappa > 1 ? meanSigma + (densityEnd * Math.exp(tEnd)) / (kappa - 1) : Infinity;
   meanSigma2 += tailSigma2;
   const siteSd: ExactSummary = {
     mean: meanSigma,
@@ -781,55 +864,75 @@ export function exactAreaPosterior(
     quantiles: logSigmaQuantiles((t) => f(t) - top, grid, probs).map(Math.exp),
   };
 
-  // The conditional moments at every grid point that carries mass.
+  // Mixture nodes: grid points that carry mass. Far left, where σ² < 1e-14 of both every ψ_i
+  // and every x_iᵀP⁻¹x_i, all conditionals equal their σ → 0 limits to 1e-14, so those points
+  // are merged into one (this removes the long e^t tail of the uniform and half-Cauchy priors).
   let maxWeight = 0;
   for (let k = 0; k < G; k++) maxWeight = Math.max(maxWeight, weight[k]);
-  const active: number[] = [];
-  for (let k = 0; k < G; k++) if (weight[k] > PRUNE_RELATIVE_WEIGHT * maxWeight) active.push(k);
-  const K = active.length;
-  const w = new Float64Array(K);
-  const sigma2 = new Float64Array(K);
-  const factors = new Float64Array(K * p * p);
-  const betas = new Float64Array(K * p);
-  const betaVar = new Float64Array(K * p);
-  const inverse = new Float64Array(p * p);
-  let wSum = 0;
-  for (let a = 0; a < K; a++) {
-    const k = active[a];
-    w[a] = weight[k];
-    wSum += w[a];
-    sigma2[a] = Math.exp(2 * tAt(k));
-    logIntegratedLikelihood(g, sigma2[a]);
-    factors.set(g.L, a * p * p);
-    betas.set(g.beta, a * p);
-    choleskyInverse(g.L, p, inverse);
-    for (let j = 0; j < p; j++) betaVar[a * p + j] = inverse[j * p + j];
+  const rowNorm = smallestRowNorm(data);
+  const nodes: number[] = [];
+  const nodeWeights: number[] = [];
+  let merged = 0;
+  for (let k = 0; k < G; k++) {
+    let trace = 0;
+    for (let j = 0; j < p; j++) for (let c = 0; c <= j; c++) trace += grid.factors[k * pp + j * p + c] ** 2;
+    const limit = 1e-14 * Math.min(g.psiMin, rowNorm / trace);
+    const mergeable = k + 1 < G && Math.exp(2 * tAt(k + 1)) <= limit;
+    if (mergeable) {
+      merged += weight[k];
+      continue;
+    }
+    const wk = weight[k] + merged;
+    merged = 0;
+    if (wk > PRUNE_RELATIVE_WEIGHT * maxWeight) {
+      nodes.push(k);
+      nodeWeights.push(wk);
+    }
   }
-  for (let a = 0; a < K; a++) w[a] /= wSum;
+  const K = nodes.length;
+  const mix: Mixture = { count: K, w: new Float64Array(K), mu: new Float64Array(K), sd: new Float64Array(K) };
+  const sigma2 = new Float64Array(K);
+  const inverseFactors = new Float64Array(K * pp); // L⁻¹, so x_iᵀP⁻¹x_i = ‖L⁻¹x_i‖²
+  const betas = new Float64Array(K * p);
+  const betaVar = new Float64Array(K * p); // diag P⁻¹ = column sums of squares of L⁻¹
+  let wSum = 0;
+  for (let a = 0; a < K; a++) wSum += nodeWeights[a];
+  for (let a = 0; a < K; a++) {
+    const k = nodes[a];
+    mix.w[a] = nodeWeights[a] / wSum;
+    sigma2[a] = Math.exp(2 * tAt(k));
+    const inv = inverseFactors.subarray(a * pp, (a + 1) * pp);
+    lowerTriangularInverse(grid.factors.subarray(k * pp, (k + 1) * pp), p, inv);
+    betas.set(grid.betas.subarray(k * p, (k + 1) * p), a * p);
+    for (let j = 0; j < p; j++) {
+      let s = 0;
+      for (let r = j; r < p; r++) s += inv[r * p + j] ** 2;
+      betaVar[a * p + j] = s;
+    }
+  }
   // Var(β_j | σ²) grows like σ² under a flat prior: its tail past the grid, as for σ².
-  logIntegratedLikelihood(g, Math.exp(2 * tEnd));
-  choleskyInverse(g.L, p, inverse);
-  const endBetaVar = Array.from({ length: p }, (_, j) => inverse[j * p + j]);
+  const endInverse = new Float64Array(pp);
+  lowerTriangularInverse(grid.factors.subarray((G - 1) * pp, G * pp), p, endInverse);
 
   const zs = probs.map((q) => normalQuantile(q));
-  const mu = new Float64Array(K);
-  const sd = new Float64Array(K);
-
   const coefficients: ExactSummary[] = [];
   for (let j = 0; j < p; j++) {
     for (let a = 0; a < K; a++) {
-      mu[a] = betas[a * p + j];
-      sd[a] = Math.sqrt(betaVar[a * p + j]);
+      mix.mu[a] = betas[a * p + j];
+      mix.sd[a] = Math.sqrt(betaVar[a * p + j]);
     }
-    const flat = g.lambda === 0;
-    const tail = flat ? (kappa > 2 ? (densityEnd * endBetaVar[j]) / (kappa - 2) : Infinity) : 0;
-    coefficients.push(summariseMixture(K, w, mu, sd, probs, zs, tail));
+    let tail = 0;
+    if (g.lambda === 0) {
+      let endVar = 0;
+      for (let r = j; r < p; r++) endVar += endInverse[r * p + j] ** 2;
+      tail = kappa > 2 ? (densityEnd * endVar) / (kappa - 2) : Infinity;
+    }
+    coefficients.push(summariseMixture(mix, probs, zs, tail));
   }
 
   const sites: ExactSummary[] = [];
   const weightDirect = new Float64Array(m);
   const x = new Float64Array(p);
-  const z = new Float64Array(p);
   for (let i = 0; i < m; i++) {
     for (let j = 0; j < p; j++) x[j] = data.X[i * p + j];
     const sampled = data.hasData[i] === 1;
@@ -837,30 +940,29 @@ export function exactAreaPosterior(
     const psi = data.variance[i];
     let gammaMean = 0;
     for (let a = 0; a < K; a++) {
-      const o = a * p * p;
+      const o = a * pp;
       const ob = a * p;
       let eta = 0;
-      let leverage = 0; // x_iᵀ P⁻¹ x_i = ‖L⁻¹ x_i‖²
+      let leverage = 0; // x_iᵀ P⁻¹ x_i
       for (let r = 0; r < p; r++) {
         eta += x[r] * betas[ob + r];
-        let s = x[r];
-        for (let c = 0; c < r; c++) s -= factors[o + r * p + c] * z[c];
-        z[r] = s / factors[o + r * p + r];
-        leverage += z[r] * z[r];
+        let z = 0;
+        for (let c = 0; c <= r; c++) z += inverseFactors[o + r * p + c] * x[c];
+        leverage += z * z;
       }
       if (sampled) {
         const gamma = sigma2[a] / (sigma2[a] + psi);
         const shrink = 1 - gamma;
-        mu[a] = gamma * yi + shrink * eta;
-        sd[a] = Math.sqrt(gamma * psi + shrink * shrink * leverage);
-        gammaMean += w[a] * gamma;
+        mix.mu[a] = gamma * yi + shrink * eta;
+        mix.sd[a] = Math.sqrt(gamma * psi + shrink * shrink * leverage);
+        gammaMean += mix.w[a] * gamma;
       } else {
-        mu[a] = eta;
-        sd[a] = Math.sqrt(sigma2[a] + leverage);
+        mix.mu[a] = eta;
+        mix.sd[a] = Math.sqrt(sigma2[a] + leverage);
       }
     }
     weightDirect[i] = sampled ? gammaMean : 0;
-    sites.push(summariseMixture(K, w, mu, sd, probs, zs, sampled ? 0 : tailSigma2));
+    sites.push(summariseMixture(mix, probs, zs, sampled ? 0 : tailSigma2));
   }
 
   const sigmaGrid = new Float64Array(G);

@@ -3,7 +3,7 @@
  * the weight on the site's own data, and the reliability flag with its reasons.
  */
 import type { Settings } from '../config/types.js';
-import type { AreaData } from '../data/types.js';
+import type { SiteInputs } from '../models/prepared.js';
 import type { QuantitySummary } from './posterior.js';
 
 export type Flag = 'publish' | 'caution' | 'suppress';
@@ -56,39 +56,27 @@ export function evaluateGate(summaries: readonly QuantitySummary[], rhatMax: num
   return { converged: failing.length === 0, worstRhat, lowestEssBulk, lowestEssTail, failing };
 }
 
-/** Posterior mean over draws of γ_i = σ²/(σ² + ψ_i), the weight on site i's own data. */
-export function weightOnDirect(siteSdDraws: Float64Array, psi: number): number {
-  let sum = 0;
-  for (let k = 0; k < siteSdDraws.length; k++) {
-    const s2 = siteSdDraws[k] * siteSdDraws[k];
-    sum += s2 / (s2 + psi);
-  }
-  return sum / siteSdDraws.length;
-}
-
 /** Per covariate, the [min, max] over sampled sites. */
-function sampledRanges(data: AreaData): Array<[number, number]> {
-  const ranges: Array<[number, number]> = [];
-  for (let j = 1; j < data.p; j++) {
-    let lo = Infinity;
-    let hi = -Infinity;
-    for (let i = 0; i < data.m; i++) {
-      if (!data.hasData[i]) continue;
-      const v = data.X[i * data.p + j];
-      if (v < lo) lo = v;
-      if (v > hi) hi = v;
+function sampledRanges(sites: SiteInputs): Array<[number, number]> {
+  const k = sites.covariateNames.length;
+  const ranges: Array<[number, number]> = Array.from({ length: k }, () => [Infinity, -Infinity]);
+  for (let i = 0; i < sites.m; i++) {
+    if (!sites.sampled[i]) continue;
+    for (let j = 0; j < k; j++) {
+      const v = sites.covariates[i * k + j];
+      if (v < ranges[j][0]) ranges[j][0] = v;
+      if (v > ranges[j][1]) ranges[j][1] = v;
     }
-    ranges.push([lo, hi]);
   }
   return ranges;
 }
 
-function outsideRange(data: AreaData, ranges: Array<[number, number]>, site: number): string[] {
+function outsideRange(sites: SiteInputs, ranges: Array<[number, number]>, site: number): string[] {
+  const k = sites.covariateNames.length;
   const names: string[] = [];
-  for (let j = 1; j < data.p; j++) {
-    const v = data.X[site * data.p + j];
-    const [lo, hi] = ranges[j - 1];
-    if (v < lo || v > hi) names.push(data.coefficientNames[j]);
+  for (let j = 0; j < k; j++) {
+    const v = sites.covariates[site * k + j];
+    if (v < ranges[j][0] || v > ranges[j][1]) names.push(sites.covariateNames[j]);
   }
   return names;
 }
@@ -139,40 +127,38 @@ export function worstFlag(findings: readonly Finding[]): Flag {
 }
 
 /**
- * Builds the per-site table. `summaries` holds every monitored quantity by name; `siteSdDraws`
- * is the pooled draws of σ_u (for the weights on own data).
+ * Builds the per-site table. `summaries` holds every monitored quantity by name; `weights` is
+ * each site's posterior mean weight on its own data.
  */
 export function siteEstimates(
-  data: AreaData,
+  sites: SiteInputs,
   summaries: ReadonlyMap<string, QuantitySummary>,
-  siteSdDraws: Float64Array,
-  settings: Settings,
+  weights: Float64Array,
+  rules: Settings['reliability'],
   gate: GateResult,
 ): SiteEstimate[] {
-  const rules = settings.reliability;
-  const ranges = sampledRanges(data);
-  return data.siteIds.map((site, i) => {
+  const ranges = sampledRanges(sites);
+  return sites.siteIds.map((site, i) => {
     const q = summaries.get(`site:${site}`)!;
-    const sampled = data.hasData[i] === 1;
-    const directSe = sampled ? Math.sqrt(data.variance[i]) : NaN;
+    const sampled = sites.sampled[i] === 1;
     const base = {
       site,
-      label: data.labels[i],
-      n: sampled ? data.sampleSize[i] : 0,
-      direct: sampled ? data.direct[i] : NaN,
-      directSe,
-      directCv: sampled ? directSe / Math.abs(data.direct[i]) : NaN,
+      label: sites.labels[i],
+      n: sites.n[i],
+      direct: sampled ? sites.direct[i] : NaN,
+      directSe: sampled ? sites.directSe[i] : NaN,
+      directCv: sampled ? sites.directSe[i] / Math.abs(sites.direct[i]) : NaN,
       estimate: q.mean,
       sd: q.sd,
       lower: q.lower,
       upper: q.upper,
       cv: q.sd / Math.abs(q.mean),
-      weightDirect: sampled ? weightOnDirect(siteSdDraws, data.variance[i]) : 0,
+      weightDirect: sampled ? weights[i] : 0,
     };
     const findings = siteFindings(base, rules, {
       converged: passesGate(q, rules.rhat_max, rules.ess_min),
       runConverged: gate.converged,
-      outside: outsideRange(data, ranges, i),
+      outside: outsideRange(sites, ranges, i),
     });
     return { ...base, flag: worstFlag(findings), reasons: findings.map((f) => f.reason) };
   });

@@ -1,0 +1,66 @@
+/** The area model as the pipeline sees it (see src/models/prepared.ts). */
+import type { Settings } from '../config/types.js';
+import type { AreaData, FileFingerprint } from '../data/types.js';
+import { areaQuantities } from './area.js';
+import type { PreparedFit, SiteInputs } from './prepared.js';
+
+function covariatesWithoutIntercept(data: AreaData): Float64Array {
+  const k = data.p - 1;
+  const out = new Float64Array(data.m * k);
+  for (let i = 0; i < data.m; i++) for (let j = 0; j < k; j++) out[i * k + j] = data.X[i * data.p + j + 1];
+  return out;
+}
+
+export function areaSiteInputs(data: AreaData): SiteInputs {
+  const directSe = new Float64Array(data.m);
+  const n = new Float64Array(data.m);
+  for (let i = 0; i < data.m; i++) {
+    directSe[i] = data.hasData[i] ? Math.sqrt(data.variance[i]) : NaN;
+    n[i] = data.hasData[i] ? data.sampleSize[i] : 0;
+  }
+  return {
+    m: data.m,
+    siteIds: data.siteIds,
+    labels: data.labels,
+    n,
+    direct: data.direct,
+    directSe,
+    sampled: data.hasData,
+    covariates: covariatesWithoutIntercept(data),
+    covariateNames: data.coefficientNames.slice(1),
+  };
+}
+
+/** Posterior mean over draws of γ_i = σ²/(σ² + ψ_i), the weight on site i's own data. */
+export function areaWeights(data: AreaData, siteSdDraws: Float64Array): Float64Array {
+  const weights = new Float64Array(data.m);
+  for (let i = 0; i < data.m; i++) {
+    if (!data.hasData[i]) continue;
+    let sum = 0;
+    for (let k = 0; k < siteSdDraws.length; k++) {
+      const s2 = siteSdDraws[k] * siteSdDraws[k];
+      sum += s2 / (s2 + data.variance[i]);
+    }
+    weights[i] = sum / siteSdDraws.length;
+  }
+  return weights;
+}
+
+export function prepareArea(settings: Settings, data: AreaData, files: FileFingerprint[]): PreparedFit {
+  return {
+    kind: 'area',
+    spec: {
+      kind: 'area',
+      data,
+      coefficients: settings.model.priors.coefficients,
+      siteSd: settings.model.priors.site_sd,
+      method: settings.sampling.method,
+    },
+    quantities: areaQuantities(data),
+    coefficientNames: data.coefficientNames,
+    sites: areaSiteInputs(data),
+    files,
+    varianceNote: data.varianceNote,
+    weightDirect: (pooled) => areaWeights(data, pooled('site_sd')),
+  };
+}

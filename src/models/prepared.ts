@@ -1,0 +1,42 @@
+/**
+ * What the pipeline needs from any model kind, once its data are loaded: a serialisable spec for
+ * the sampler, the monitored quantities, the per-site survey figures for the outputs, and how to
+ * turn parameter draws into each site's weight on its own data. Each model kind provides a
+ * `prepare…` function returning this; the driver, diagnostics, flags and writer are shared.
+ */
+import type { ModelKind } from '../config/types.js';
+import type { FileFingerprint } from '../data/types.js';
+import type { ModelSpec } from './index.js';
+
+/** Per-site survey (direct) figures and covariates, as the outputs and flags need them. */
+export interface SiteInputs {
+  m: number;
+  siteIds: string[];
+  labels: string[];
+  /** Sample size n_i: 0 for an unsampled site, NaN when the config gives no sample size. */
+  n: Float64Array;
+  /** Direct estimate and its standard error; NaN where not available. */
+  direct: Float64Array;
+  directSe: Float64Array;
+  /** 1 where the site has survey data. */
+  sampled: Uint8Array;
+  /** Covariate values per site (m × covariateNames.length, row-major), for the range check. */
+  covariates: Float64Array;
+  covariateNames: string[];
+}
+
+export interface PreparedFit {
+  kind: ModelKind;
+  spec: ModelSpec;
+  quantities: string[];
+  coefficientNames: string[];
+  sites: SiteInputs;
+  files: FileFingerprint[];
+  /** How the sampling variances were obtained, in words for the appendix (area model). */
+  varianceNote: string;
+  /**
+   * Posterior mean per site of the weight on the site's own data (1 − shrinkage), from the
+   * pooled draws of the named parameters; 0 for unsampled sites.
+   */
+  weightDirect(pooled: (quantity: string) => Float64Array): Float64Array;
+}
