@@ -543,12 +543,16 @@ function buildGrid(g: Marginal, mode: number, top: number, h: number, kappa: num
   return { t0: mode - left * h, h, logDensity, factors: allFactors, betas: allBetas };
 }
 
-/** Largest h²|ℓ''| over grid points that carry mass: small means the grid resolves the shape. */
+/**
+ * Largest h²|ℓ''| over grid points that carry real mass (within e^{-10} of the top): above 1 the
+ * log density bends on a scale shorter than the spacing somewhere the mass is — a second, sharper
+ * mode — and the grid is refined.
+ */
 function roughness(grid: Grid): number {
   const v = grid.logDensity;
   let worst = 0;
   for (let k = 1; k + 1 < v.length; k++) {
-    if (v[k] < -25) continue;
+    if (v[k] < -10) continue;
     worst = Math.max(worst, Math.abs(v[k + 1] - 2 * v[k] + v[k - 1]));
   }
   return worst;
@@ -829,7 +833,7 @@ export function exactAreaPosterior(
   const scale = Math.min(halfWidth(f, mode.t, top, -1), halfWidth(f, mode.t, top, 1));
   let h = Math.min(MAX_SPACING, SPACING_PER_SCALE * scale) * spacingFactor;
   let grid = buildGrid(g, mode.t, top, h, kappa);
-  for (let refine = 0; refine < 8 && roughness(grid) > 0.3; refine++) {
+  for (let refine = 0; refine < 8 && roughness(grid) > 1; refine++) {
     h /= 2;
     grid = buildGrid(g, mode.t, top, h, kappa);
   }
