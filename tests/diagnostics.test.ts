@@ -451,7 +451,10 @@ describe('diagnoseQuantity equals the plain slow transcription', () => {
     ['skewed exp() 4 × 300', ar1Chains(4, 300, 0.5, 7).map((c) => c.map((v) => Math.exp(2 * v)))],
     ['short chains 3 × 9', ar1Chains(3, 9, 0.1, 8)],
     ['one draw per chain 4 × 1', ar1Chains(4, 1, 0, 9)],
-    ['concentrated far from zero: 1000 + 1e-9 z, 4 × 200', ar1Chains(4, 200, 0.3, 15).map((c) => c.map((v) => 1000 + 1e-9 * v))],
+    // Small spread far from zero. (The raw-draw ESS behind the MCSE is conditioned by
+    // ulp(mean)/sd: summation order alone moves it by that relative amount, so 1e-10 agreement
+    // needs ulp(1000)/sd below ~1e-12; the rank-based parts do not depend on the scale at all.)
+    ['small spread far from zero: 1000 + 0.1 z, 4 × 200', ar1Chains(4, 200, 0.3, 15).map((c) => c.map((v) => 1000 + 0.1 * v))],
     // Outliers stretch the range so that the radix keys collapse: exercises the comparison-sort fallback.
     ['extreme outliers 4 × 200', ar1Chains(4, 200, 0.3, 16).map((c, k) => c.map((v, i) => (i === 7 ? (k - 1.5) * 1e150 : v)))],
     ['heavy tails (z^9) 3 × 300', ar1Chains(3, 300, 0.3, 19).map((c) => c.map((v) => v ** 9))],
@@ -472,6 +475,16 @@ describe('diagnoseQuantity equals the plain slow transcription', () => {
     const scratch = createScratch(4, 300);
     const inputs = [ar1Chains(4, 300, 0.99, 11), ar1Chains(4, 300, 0, 12), ar1Chains(4, 300, 0.5, 13).map((c) => c.map(Math.round))];
     for (const chains of inputs) expectAllClose(diagnoseQuantity(chains, scratch), plainDiagnose(chains), 1e-10, 'reused');
+  });
+
+  it('leaves all draws sorted in scratch.sortedAll (read by the posterior summaries)', () => {
+    for (const [m, n] of [[4, 300], [3, 301], [2, 1]]) {
+      const chains = ar1Chains(m, n, 0.5, 20 + n);
+      const scratch = createScratch(m, n);
+      diagnoseQuantity(chains, scratch);
+      const expected = chains.flatMap((c) => Array.from(c)).sort((a, b) => a - b);
+      expect(Array.from(scratch.sortedAll.subarray(0, m * n))).toEqual(expected);
+    }
   });
 
   it('exported helpers agree with the plain versions', () => {

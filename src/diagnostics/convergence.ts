@@ -63,6 +63,10 @@ export class DiagnosticsScratch {
 
   readonly raw: Float64Array;
   readonly sortOrder: SortOrder;
+  /**
+   * After {@link diagnoseQuantity} on finite draws: all nChains·nDraws draws (middle draws of
+   * odd-length chains included) in ascending order. Callers read posterior quantiles from here.
+   */
   readonly sortedAll: Float64Array;
   readonly middles: Float64Array;
   readonly folded: Float64Array;
@@ -113,11 +117,13 @@ export class DiagnosticsScratch {
 class EssWorkspace {
   readonly centered: Float64Array;
   readonly chainMeans: Float64Array;
+  readonly chainSquares: Float64Array;
   readonly rho: Float64Array;
   readonly lagSums: AutocovarianceSums;
   constructor(nChains: number, length: number, fftFromLag?: number) {
     this.centered = new Float64Array(nChains * length);
     this.chainMeans = new Float64Array(nChains);
+    this.chainSquares = new Float64Array(nChains);
     this.rho = new Float64Array(Math.max(length, 2));
     this.lagSums = new AutocovarianceSums(length, fftFromLag);
   }
@@ -238,9 +244,14 @@ export function diagnoseQuantity(chains: readonly Float64Array[], scratch?: Diag
   const foldedConstant = sc.folded[0] === sc.folded[s - 1];
 
   const ws = sc.ess;
-  const rhatBulk = splitConstant ? Number.NaN : rhatOfMatrix(zBulk, mSplit, nSplit, ws.chainMeans);
-  const rhatTail = foldedConstant ? Number.NaN : rhatOfMatrix(zTail, mSplit, nSplit, ws.chainMeans);
-  const essBulk = splitConstant ? Number.NaN : essOfMatrix(zBulk, mSplit, nSplit, ws);
+  let rhatBulk = Number.NaN;
+  let essBulk = Number.NaN;
+  if (!splitConstant) {
+    chainMoments(zBulk, mSplit, nSplit, ws); // shared by R-hat and ESS
+    rhatBulk = rhatFromMoments(mSplit, nSplit, ws);
+    essBulk = essFromMoments(mSplit, nSplit, ws);
+  }
+  const rhatTail = foldedConstant ? Number.NaN : rhatOfMatrix(zTail, mSplit, nSplit, ws);
   const essQ05 = allConstant || count05 === 0 || count05 === s ? Number.NaN : essOfMatrix(i05, mSplit, nSplit, ws);
   const essQ95 = allConstant || count95 === 0 || count95 === s ? Number.NaN : essOfMatrix(i95, mSplit, nSplit, ws);
   const essMean = rawConstant ? Number.NaN : essOfMatrix(raw, mSplit, nSplit, ws);
@@ -304,7 +315,7 @@ export function rankNormalize(chains: readonly Float64Array[]): Float64Array[] {
 export function rhatOfChains(chains: readonly Float64Array[]): number {
   const { values, nChains, length } = toMatrix(chains);
   if (!allFinite(chains) || isConstantArray(values, nChains * length)) return Number.NaN;
-  return rhatOfMatrix(values, nChains, length, new Float64Array(nChains));
+  return rhatOfMatrix(values, nChains, length, new EssWorkspace(nChains, length));
 }
 
 /** Classic split R-hat without rank-normalization: {@link rhatOfChains} of {@link splitChains}. */
@@ -326,33 +337,73 @@ export function essOfChains(chains: readonly Float64Array[]): number {
 // ---------------------------------------------------------------------------------------------
 // Core estimators on a flat matrix: chain j occupies values[j*N .. (j+1)*N).
 
-/** Basic R-hat of a flat matrix; the caller has already excluded constant input. */
-function rhatOfMatrix(values: Float64Array, nChains: number, length: number, means: Float64Array): number {
-  let meanOfMeans = 0;
-  let meanOfVars = 0;
+/**
+ * Per-chain means, centered values (into ws.centered) and sums of squared deviations (into
+ * ws.chainSquares) of a flat matrix: the shared first step of R-hat and ESS. Sums use two
+ * accumulators, which halves the add-latency chain.
+ */
+function chainMoments(values: Float64Array, nChains: number, length: number, ws: EssWorkspace): void {
+  const means = ws.chainMeans;
+  const squares = ws.chainSquares;
+  const centered = ws.centered;
   for (let j = 0; j < nChains; j++) {
     const base = j * length;
-    let sum = 0;
-    for (let i = base; i < base + length; i++) sum += values[i];
-    const mean = sum / length;
-    let ss = 0;
-    for (let i = base; i < base + length; i++) {
+    const end = base + length;
+    let s0 = 0;
+    let s1 = 0;
+    let i = base;
+    for (; i + 1 < end; i += 2) {
+      s0 += values[i];
+      s1 += values[i + 1];
+    }
+    if (i < end) s0 += values[i];
+    const mean = (s0 + s1) / length;
+    let q0 = 0;
+    let q1 = 0;
+    for (i = base; i + 1 < end; i += 2) {
+      const d0 = values[i] - mean;
+      const d1 = values[i + 1] - mean;
+      centered[i] = d0;
+      centered[i + 1] = d1;
+      q0 += d0 * d0;
+      q1 += d1 * d1;
+    }
+    if (i < end) {
       const d = values[i] - mean;
-      ss += d * d;
+      centered[i] = d;
+      q0 += d * d;
     }
     means[j] = mean;
-    meanOfMeans += mean;
-    meanOfVars += ss / (length - 1);
+    squares[j] = q0 + q1;
   }
-  meanOfMeans /= nChains;
-  const within = meanOfVars / nChains;
-  let ssMeans = 0;
-  for (let j = 0; j < nChains; j++) {
-    const d = means[j] - meanOfMeans;
-    ssMeans += d * d;
-  }
-  const between = (length * ssMeans) / (nChains - 1);
+}
+
+/** Mean and sample variance (divisor n - 1) of xs[0..n). */
+function meanAndVariance(xs: Float64Array, n: number): { mean: number; variance: number } {
+  let sum = 0;
+  for (let j = 0; j < n; j++) sum += xs[j];
+  const mean = sum / n;
+  let ss = 0;
+  for (let j = 0; j < n; j++) ss += (xs[j] - mean) * (xs[j] - mean);
+  return { mean, variance: ss / (n - 1) };
+}
+
+/**
+ * Basic R-hat from the chain moments left in `ws` by {@link chainMoments} (posterior's .rhat):
+ * B = N·var(chain means), W = mean of chain variances, R-hat = sqrt((B/W + N - 1)/N).
+ */
+function rhatFromMoments(nChains: number, length: number, ws: EssWorkspace): number {
+  let sumOfVars = 0;
+  for (let j = 0; j < nChains; j++) sumOfVars += ws.chainSquares[j] / (length - 1);
+  const within = sumOfVars / nChains;
+  const between = length * meanAndVariance(ws.chainMeans, nChains).variance;
   return Math.sqrt((between / within + length - 1) / length);
+}
+
+/** Basic R-hat of a flat matrix; the caller has already excluded constant input. */
+function rhatOfMatrix(values: Float64Array, nChains: number, length: number, ws: EssWorkspace): number {
+  chainMoments(values, nChains, length, ws);
+  return rhatFromMoments(nChains, length, ws);
 }
 
 /**
@@ -361,36 +412,22 @@ function rhatOfMatrix(values: Float64Array, nChains: number, length: number, mea
  * The caller has already excluded constant input.
  */
 function essOfMatrix(values: Float64Array, nChains: number, length: number, ws: EssWorkspace): number {
+  if (length < 3) return Number.NaN;
+  chainMoments(values, nChains, length, ws);
+  return essFromMoments(nChains, length, ws);
+}
+
+/** ESS from the chain moments left in `ws` by {@link chainMoments}. */
+function essFromMoments(nChains: number, length: number, ws: EssWorkspace): number {
   const total = nChains * length;
   if (length < 3) return Number.NaN;
-
-  const means = ws.chainMeans;
   const centered = ws.centered;
-  let meanOfMeans = 0;
-  for (let j = 0; j < nChains; j++) {
-    const base = j * length;
-    let sum = 0;
-    for (let i = base; i < base + length; i++) sum += values[i];
-    const mean = sum / length;
-    means[j] = mean;
-    meanOfMeans += mean;
-    for (let i = base; i < base + length; i++) centered[i] = values[i] - mean;
-  }
-  meanOfMeans /= nChains;
-
   const lags = ws.lagSums;
   lags.load(centered, nChains, length);
   const toMeanAcov = 1 / total; // L(t) / (M N) = mean over chains of the biased autocovariance
   const meanVar = ((lags.at(0) * toMeanAcov) * length) / (length - 1);
   let varPlus = (meanVar * (length - 1)) / length;
-  if (nChains > 1) {
-    let ss = 0;
-    for (let j = 0; j < nChains; j++) {
-      const d = means[j] - meanOfMeans;
-      ss += d * d;
-    }
-    varPlus += ss / (nChains - 1);
-  }
+  if (nChains > 1) varPlus += meanAndVariance(ws.chainMeans, nChains).variance;
 
   // Geyer's initial positive sequence.
   const rho = ws.rho;
@@ -451,7 +488,7 @@ function lowerBound(sorted: Float64Array, len: number, value: number): number {
 /**
  * Walk the tie groups of sorted[0..len): the group at positions [a, b) has average rank
  * (a+1+b)/2 and Blom score z, written to scoreAt[k] for every k in the group or, with `through`,
- * to scoreAt[through[k]].
+ * to scoreAt[through[k]]. Untied values (the common case) take the tabulated score of rank k+1.
  */
 function scoreTieGroups(
   sorted: Float64Array,
@@ -460,20 +497,47 @@ function scoreTieGroups(
   scoreAt: Float64Array,
   through: Int32Array | null,
 ): void {
-  const denominator = len - 2 * BLOM_OFFSET + 1;
   let a = 0;
-  while (a < len) {
-    const v = sorted[a];
-    let b = a + 1;
-    while (b < len && sorted[b] === v) b++;
-    const rankTwice = a + 1 + b;
-    // Odd group size gives an integer average rank, whose score is tabulated.
-    const score =
-      (rankTwice & 1) === 0 ? blom[rankTwice >>> 1] : normalQuantile((rankTwice / 2 - BLOM_OFFSET) / denominator);
-    if (through === null) for (let k = a; k < b; k++) scoreAt[k] = score;
-    else for (let k = a; k < b; k++) scoreAt[through[k]] = score;
-    a = b;
+  if (through === null) {
+    while (a < len) {
+      if (a + 1 < len && sorted[a + 1] === sorted[a]) a = scoreTieGroup(sorted, len, blom, scoreAt, null, a);
+      else {
+        scoreAt[a] = blom[a + 1];
+        a++;
+      }
+    }
+  } else {
+    while (a < len) {
+      if (a + 1 < len && sorted[a + 1] === sorted[a]) a = scoreTieGroup(sorted, len, blom, scoreAt, through, a);
+      else {
+        scoreAt[through[a]] = blom[a + 1];
+        a++;
+      }
+    }
   }
+}
+
+/** One group of at least two tied values starting at `a`; returns the position after it. */
+function scoreTieGroup(
+  sorted: Float64Array,
+  len: number,
+  blom: Float64Array,
+  scoreAt: Float64Array,
+  through: Int32Array | null,
+  a: number,
+): number {
+  const v = sorted[a];
+  let b = a + 2;
+  while (b < len && sorted[b] === v) b++;
+  const rankTwice = a + 1 + b;
+  // An odd group size gives an integer average rank, whose score is tabulated.
+  const score =
+    (rankTwice & 1) === 0
+      ? blom[rankTwice >>> 1]
+      : normalQuantile((rankTwice / 2 - BLOM_OFFSET) / (len - 2 * BLOM_OFFSET + 1));
+  if (through === null) for (let k = a; k < b; k++) scoreAt[k] = score;
+  else for (let k = a; k < b; k++) scoreAt[through[k]] = score;
+  return b;
 }
 
 /**
@@ -487,13 +551,13 @@ function foldSorted(sorted: Float64Array, len: number, median: number, folded: F
   let above = split;
   let k = 0;
   // Written without a data-dependent branch: the left/right choice is a coin flip for each draw,
-  // which a branch predictor cannot learn.
+  // which a branch predictor cannot learn. |sorted[i] - median| equals median - sorted[i] below
+  // the median exactly (rounding is symmetric), so the value can be recomputed from the index.
   while (below >= 0 && above < len) {
-    const left = median - sorted[below];
-    const right = sorted[above] - median;
-    const takeLeft = left <= right ? 1 : 0;
-    folded[k] = takeLeft === 1 ? left : right;
-    source[k] = takeLeft === 1 ? below : above;
+    const takeLeft = +(median - sorted[below] <= sorted[above] - median);
+    const from = above + takeLeft * (below - above);
+    folded[k] = Math.abs(sorted[from] - median);
+    source[k] = from;
     k++;
     below -= takeLeft;
     above += 1 - takeLeft;
@@ -565,23 +629,36 @@ function isConstantArray(values: Float64Array, len: number): boolean {
   return isConstantRange(min, max);
 }
 
-/** Sample variance (divisor S - 1) of all draws of all chains. */
+/** Sample variance (divisor S - 1) of all draws of all chains (two accumulators per sum). */
 function varianceOfChains(chains: readonly Float64Array[]): number {
   let count = 0;
-  let sum = 0;
+  let s0 = 0;
+  let s1 = 0;
   for (const chain of chains) {
-    for (let i = 0; i < chain.length; i++) sum += chain[i];
-    count += chain.length;
-  }
-  const mean = sum / count;
-  let ss = 0;
-  for (const chain of chains) {
-    for (let i = 0; i < chain.length; i++) {
-      const d = chain[i] - mean;
-      ss += d * d;
+    const n = chain.length;
+    let i = 0;
+    for (; i + 1 < n; i += 2) {
+      s0 += chain[i];
+      s1 += chain[i + 1];
     }
+    if (i < n) s0 += chain[i];
+    count += n;
   }
-  return ss / (count - 1);
+  const mean = (s0 + s1) / count;
+  let q0 = 0;
+  let q1 = 0;
+  for (const chain of chains) {
+    const n = chain.length;
+    let i = 0;
+    for (; i + 1 < n; i += 2) {
+      const d0 = chain[i] - mean;
+      const d1 = chain[i + 1] - mean;
+      q0 += d0 * d0;
+      q1 += d1 * d1;
+    }
+    if (i < n) q0 += (chain[i] - mean) * (chain[i] - mean);
+  }
+  return (q0 + q1) / (count - 1);
 }
 
 /** R's max()/min() of two numbers: NaN if either is NaN. */

@@ -8,9 +8,11 @@
  * Two samplers share the quantities they record (β, σ, every θ_i):
  *
  * - `collapsed` (default). σ is drawn from its marginal posterior p(σ | y), with β and θ
- *   integrated out analytically, by univariate slice sampling (Neal 2003, "Slice sampling",
- *   Annals of Statistics 31(3), stepping-out and shrinkage) on log σ or on σ itself, whichever
- *   moved farther during warmup (σ suits posteriors reaching down to zero, log σ the others). Then β | σ, y and
+ *   integrated out analytically. Three updates leave that marginal invariant: univariate slice
+ *   sampling (Neal 2003, "Slice sampling", Annals of Statistics 31(3), stepping-out and
+ *   shrinkage) on log σ or on σ itself, and an independence Metropolis–Hastings step with a
+ *   Student-t proposal fitted in warmup. Warmup tries them in turn and sampling keeps the one
+ *   that moved σ farthest per evaluation of the marginal (one pass over the sites each). Then β | σ, y and
  *   θ | β, σ, y are drawn exactly. Because β and θ are never conditioned on in the σ update, the
  *   chain does not stall when σ is near zero — the corner where plain Gibbs mixes slowly
  *   (Gelman 2006, Bayesian Analysis 1(3); Yu & Meng 2011, JCGS 20(3)) — and each sweep is a
@@ -59,9 +61,10 @@ interface Packed {
   y: Float64Array;
   psi: Float64Array;
   /**
-   * Per sampled site, the terms of the marginal's sufficient statistics, one row of `width`:
-   * the lower triangle of x xᵀ (p(p+1)/2 values), then x·y (p values), then y². The marginal
-   * of σ² is then one weighted sum of these rows.
+   * The terms of the marginal's sufficient statistics, stored term-major (`width` columns of n
+   * sites each): the lower triangle of x xᵀ (p(p+1)/2 terms), then x·y (p terms), then y². The
+   * marginal of σ² needs their weighted sums, i.e. `width` dot products with the weights, which
+   * run as tight loops with one accumulator each.
    */
   terms: Float64Array;
   width: number;
@@ -78,11 +81,11 @@ function outerProductTerms(X: Float64Array, y: Float64Array, n: number, p: numbe
   const width = (p * (p + 1)) / 2 + p + 1;
   const terms = new Float64Array(n * width);
   for (let k = 0; k < n; k++) {
-    let c = k * width;
+    let c = 0;
     const row = k * p;
-    for (let j = 0; j < p; j++) for (let l = 0; l <= j; l++) terms[c++] = X[row + j] * X[row + l];
-    for (let j = 0; j < p; j++) terms[c++] = X[row + j] * y[k];
-    terms[c] = y[k] * y[k];
+    for (let j = 0; j < p; j++) for (let l = 0; l <= j; l++) terms[c++ * n + k] = X[row + j] * X[row + l];
+    for (let j = 0; j < p; j++) terms[c++ * n + k] = X[row + j] * y[k];
+    terms[c * n + k] = y[k] * y[k];
   }
   return terms;
 }
@@ -139,13 +142,19 @@ export function logPriorLogSigma(t: number, prior: ScalePrior): number {
 
 /** Work buffers for the marginal of σ², reused across evaluations. */
 interface MarginalWork {
+  weights: Float64Array; // 1 / (σ² + ψ_k) per sampled site
   sums: Float64Array; // weighted sums of the packed terms
   P: Float64Array; // p × p, then its Cholesky factor (lower)
   v: Float64Array; // b, then L⁻¹b
 }
 
 function createMarginalWork(d: Packed): MarginalWork {
-  return { sums: new Float64Array(d.width), P: new Float64Array(d.p * d.p), v: new Float64Array(d.p) };
+  return {
+    weights: new Float64Array(d.n),
+    sums: new Float64Array(d.width),
+    P: new Float64Array(d.p * d.p),
+    v: new Float64Array(d.p),
+  };
 }
 
 /** Sites whose variances are multiplied together before one logarithm (keeps products in range). */
@@ -158,22 +167,25 @@ const LOG_BLOCK = 8;
 function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: MarginalWork): number {
   const { p, n, psi, terms, width } = d;
   const s2 = Math.exp(2 * t);
-  const sums = work.sums;
-  sums.fill(0);
+  const { sums, weights } = work;
   let logDetV = 0;
   let product = 1;
   for (let k = 0; k < n; k++) {
     const varTotal = s2 + psi[k];
-    const w = 1 / varTotal;
+    weights[k] = 1 / varTotal;
     product *= varTotal;
     if ((k + 1) % LOG_BLOCK === 0) {
       logDetV += Math.log(product);
       product = 1;
     }
-    const row = k * width;
-    for (let c = 0; c < width; c++) sums[c] += w * terms[row + c];
   }
   logDetV += Math.log(product);
+  for (let c = 0; c < width; c++) {
+    const base = c * n;
+    let acc = 0;
+    for (let k = 0; k < n; k++) acc += weights[k] * terms[base + k];
+    sums[c] = acc;
+  }
   const { P, v: b } = work;
   let c = 0;
   for (let j = 0; j < p; j++) for (let l = 0; l <= j; l++) P[j * p + l] = sums[c++];
@@ -197,22 +209,36 @@ function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: Marg
 
 export type SliceScale = 'log' | 'linear';
 
+/**
+ * The σ_u updates the collapsed sampler can use; each leaves p(σ_u | y) invariant, so warmup
+ * may try them in turn and keep the most efficient one for sampling.
+ */
+export const SIGMA_UPDATES = ['slice-log', 'slice-linear', 'independence-log', 'independence-linear'] as const;
+export type SigmaUpdate = (typeof SIGMA_UPDATES)[number];
+
 export interface CollapsedState {
   /** Current σ_u. */
   sigma: number;
   /** Log density of t = log σ at the current point (on σ itself it is this minus t). */
   logTarget: number;
-  /** Scale used after warmup: log σ, or σ itself when that mixes better (mass near zero). */
-  scale: SliceScale;
+  /** The σ_u update used after warmup. */
+  update: SigmaUpdate;
   /** Slice widths on each scale, tuned during warmup. */
   widthLog: number;
   widthLinear: number;
+  /** Independence proposals: Student-t on log σ and on σ, centre and spread from warmup. */
+  proposalCentre: Float64Array; // [log scale, linear scale]
+  proposalSpread: Float64Array;
   beta: Float64Array;
   theta: Float64Array;
+  /** Marginal work buffers at the current σ (the β draw reads them) and a spare. */
   work: MarginalWork;
+  spare: MarginalWork;
+  /** Evaluations of the marginal so far (for choosing the update by cost). */
+  evaluations: number;
   /**
-   * Warmup window statistics: [count, Σσ, Σσ², Σlogσ, Σ(logσ)², and per scale the summed
-   * squared jump of log σ and the number of updates on it].
+   * Warmup window statistics: [count, Σσ, Σσ², Σlogσ, Σ(logσ)²], then for each update in
+   * SIGMA_UPDATES order: summed squared jump of log σ, evaluations spent.
    */
   tune: Float64Array;
 }
@@ -245,7 +271,10 @@ function sliceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, p
   const t0 = Math.log(state.sigma);
   const x0 = scale === 'log' ? t0 : state.sigma;
   const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
-  const target = (x: number): number => logTargetOnScale(x, scale, d, prior, work);
+  const target = (x: number): number => {
+    state.evaluations++;
+    return logTargetOnScale(x, scale, d, prior, work);
+  };
   const level = current + Math.log(rng.uniform()); // log of a uniform height under the density
   const w = scale === 'log' ? state.widthLog : state.widthLinear;
   let lo = x0 - w * rng.uniform();
@@ -326,19 +355,91 @@ function startingLogSigma(d: Packed, rng: Rng): number {
   return 0.5 * Math.log(excess) + normal(rng);
 }
 
-/** Warmup alternates the two slice scales; sampling keeps the one that moved log σ farther. */
-function scaleForSweep(state: CollapsedState, phase: Phase, iteration: number): SliceScale {
-  if (phase === 'sampling') return state.scale;
-  return iteration % 2 === 0 ? 'log' : 'linear';
+/** Degrees of freedom of the independence proposal: heavier tails than the target's. */
+const PROPOSAL_DF = 5;
+/** The proposal's spread over the warmup sd: wide enough to cover the target's tails. */
+const PROPOSAL_INFLATION = 1.3;
+
+function logStudentT(x: number, centre: number, spread: number): number {
+  const z = (x - centre) / spread;
+  return -0.5 * (PROPOSAL_DF + 1) * Math.log1p((z * z) / PROPOSAL_DF) - Math.log(spread);
+}
+
+/** Log density of the proposal: Student-t on log σ; on σ folded at zero (|x|), so no proposal is wasted below zero. */
+function logProposal(x: number, scale: SliceScale, centre: number, spread: number): number {
+  if (scale === 'log') return logStudentT(x, centre, spread);
+  const a = logStudentT(x, centre, spread);
+  const b = logStudentT(-x, centre, spread);
+  const top = Math.max(a, b);
+  return top + Math.log(Math.exp(a - top) + Math.exp(b - top));
 }
 
 /**
- * Warmup tuning from the window of sweeps since the last tuning point: a width of about three
- * posterior sds on each scale, and the scale with the larger mean squared jump of log σ (the
- * usual efficiency proxy for a one-dimensional update). Log σ suits posteriors away from zero;
- * σ itself suits posteriors that reach down to zero, where log σ has a long left tail.
+ * Independence Metropolis–Hastings update of σ_u (Tierney 1994, Annals of Statistics 22(4))
+ * with a Student-t proposal fitted to the warmup draws on log σ or σ. One evaluation of the
+ * marginal per update; with a proposal wider than the target it is uniformly ergodic
+ * (Mengersen & Tweedie 1996). The proposal is evaluated into the spare buffers, which become
+ * the current ones on acceptance, so the β draw always reads the factor at the current σ.
  */
-function tuneSlice(state: CollapsedState, scale: SliceScale, previousSigma: number, phase: Phase, iteration: number): void {
+function independenceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, prior: ScalePrior, rng: Rng): void {
+  const k = scale === 'log' ? 0 : 1;
+  const centre = state.proposalCentre[k];
+  const spread = state.proposalSpread[k];
+  const g = gamma(rng, PROPOSAL_DF / 2) / (PROPOSAL_DF / 2);
+  const raw = centre + (spread * normal(rng)) / Math.sqrt(g);
+  const x1 = scale === 'log' ? raw : Math.abs(raw);
+  state.evaluations++;
+  const value = logTargetOnScale(x1, scale, d, prior, state.spare);
+  if (value === -Infinity) return;
+  const t0 = Math.log(state.sigma);
+  const x0 = scale === 'log' ? t0 : state.sigma;
+  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
+  const logRatio =
+    value - current + logProposal(x0, scale, centre, spread) - logProposal(x1, scale, centre, spread);
+  if (Math.log(rng.uniform()) < logRatio) {
+    state.sigma = scale === 'log' ? Math.exp(x1) : x1;
+    state.logTarget = scale === 'log' ? value : value + Math.log(x1);
+    const used = state.work;
+    state.work = state.spare;
+    state.spare = used;
+  }
+}
+
+function updateSigma(state: CollapsedState, update: SigmaUpdate, d: Packed, prior: ScalePrior, rng: Rng): void {
+  const scale = update.endsWith('-log') ? 'log' : 'linear';
+  if (update.startsWith('independence')) independenceUpdateSigma(state, scale, d, prior, rng);
+  else sliceUpdateSigma(state, scale, d, prior, rng);
+}
+
+/** Warmup cycles through the updates (the independence one once it has a proposal). */
+function updateForSweep(state: CollapsedState, phase: Phase, iteration: number): SigmaUpdate {
+  if (phase === 'sampling') return state.update;
+  const ready = state.proposalSpread[0] > 0;
+  const update = SIGMA_UPDATES[iteration % SIGMA_UPDATES.length];
+  return update.startsWith('independence') && !ready ? 'slice-log' : update;
+}
+
+/**
+ * Cost of the rest of a sweep (β and θ draws, recording) in evaluations of the marginal: both
+ * are one pass over the sites. Used to compare updates per unit of time, not per evaluation.
+ */
+const SWEEP_OVERHEAD = 2;
+
+/**
+ * Warmup tuning from the window of sweeps since the last tuning point: slice widths of about
+ * three posterior sds on each scale; the independence proposals from the window's moments on
+ * each scale (σ suits posteriors reaching down to zero, where log σ has a long left tail); and,
+ * for sampling, the update with the largest squared jump of log σ per evaluation of the
+ * marginal — the usual efficiency proxy for a one-dimensional update, divided by its cost.
+ */
+function tuneSigmaUpdate(
+  state: CollapsedState,
+  update: SigmaUpdate,
+  previousSigma: number,
+  evaluationsBefore: number,
+  phase: Phase,
+  iteration: number,
+): void {
   if (phase !== 'warmup') return;
   const t = state.tune;
   const logSigma = Math.log(state.sigma);
@@ -347,21 +448,31 @@ function tuneSlice(state: CollapsedState, scale: SliceScale, previousSigma: numb
   t[2] += state.sigma * state.sigma;
   t[3] += logSigma;
   t[4] += logSigma * logSigma;
-  const jump = (logSigma - Math.log(previousSigma)) ** 2;
-  if (scale === 'log') {
-    t[5] += jump;
-    t[6] += 1;
-  } else {
-    t[7] += jump;
-    t[8] += 1;
-  }
+  const slot = 5 + 2 * SIGMA_UPDATES.indexOf(update);
+  t[slot] += (logSigma - Math.log(previousSigma)) ** 2;
+  t[slot + 1] += state.evaluations - evaluationsBefore;
   if (!isTuningPoint(iteration) || t[0] < 20) return;
   const sd = (sum: number, sumSq: number) => Math.sqrt(Math.max(sumSq - (sum * sum) / t[0], 0) / (t[0] - 1));
-  const widthLinear = 3 * sd(t[1], t[2]);
-  const widthLog = 3 * sd(t[3], t[4]);
-  if (widthLinear > 0) state.widthLinear = widthLinear;
-  if (widthLog > 0) state.widthLog = widthLog;
-  state.scale = t[7] / Math.max(t[8], 1) > t[5] / Math.max(t[6], 1) ? 'linear' : 'log';
+  const meanSigma = t[1] / t[0];
+  const sdSigma = sd(t[1], t[2]);
+  const sdLog = sd(t[3], t[4]);
+  if (sdSigma > 0) state.widthLinear = 3 * sdSigma;
+  if (sdLog > 0) state.widthLog = 3 * sdLog;
+  state.proposalCentre[0] = t[3] / t[0];
+  state.proposalCentre[1] = meanSigma;
+  state.proposalSpread[0] = PROPOSAL_INFLATION * sdLog;
+  state.proposalSpread[1] = PROPOSAL_INFLATION * sdSigma;
+  let best = -1;
+  SIGMA_UPDATES.forEach((u, k) => {
+    const evaluations = t[5 + 2 * k + 1];
+    if (evaluations === 0) return;
+    const sweeps = t[0] / SIGMA_UPDATES.length;
+    const efficiency = t[5 + 2 * k] / (evaluations + SWEEP_OVERHEAD * sweeps);
+    if (efficiency > best) {
+      best = efficiency;
+      state.update = u;
+    }
+  });
   t.fill(0);
 }
 
@@ -378,22 +489,27 @@ export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState>
       return {
         sigma,
         logTarget: logMarginalLogSigma(logSigma, d, siteSd, work),
-        scale: 'log',
+        update: 'slice-log',
         widthLog: 1,
         widthLinear: sigma,
+        proposalCentre: new Float64Array(2),
+        proposalSpread: new Float64Array(2),
         beta: new Float64Array(p),
         theta: new Float64Array(data.m),
         work,
-        tune: new Float64Array(9),
+        spare: createMarginalWork(d),
+        evaluations: 1,
+        tune: new Float64Array(5 + 2 * SIGMA_UPDATES.length),
       };
     },
     step(state, rng, phase, iteration) {
-      const scale = scaleForSweep(state, phase, iteration);
+      const update = updateForSweep(state, phase, iteration);
       const previousSigma = state.sigma;
-      sliceUpdateSigma(state, scale, d, siteSd, rng);
+      const evaluationsBefore = state.evaluations;
+      updateSigma(state, update, d, siteSd, rng);
       drawBetaFromFactor(state, p, rng);
       drawTheta(state.theta, data, state.beta, state.sigma * state.sigma, rng);
-      tuneSlice(state, scale, previousSigma, phase, iteration);
+      tuneSigmaUpdate(state, update, previousSigma, evaluationsBefore, phase, iteration);
       return state;
     },
     record(state, out, stride, offset) {
