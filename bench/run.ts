@@ -15,6 +15,8 @@ import { runFit } from '../src/pipeline/fit.js';
 import { createRng } from '../src/sampler/rng.js';
 import { normal } from '../src/sampler/variates.js';
 import { readFile } from 'node:fs/promises';
+import { spawnSync } from 'node:child_process';
+import { fileURLToPath } from 'node:url';
 
 interface Scenario {
   name: string;
@@ -100,7 +102,19 @@ const scenarios: Scenario[] = [
   { name: '3000 sites, σ_u = 0.01', sites: 3000, siteSd: 0.01, method: 'plain' },
 ];
 
-const only = process.argv[2];
-console.log(`area model: ${CHAINS} chains × (${WARMUP} warmup + ${DRAWS} draws), 3 covariates`);
-for (const s of scenarios) if (!only || s.method === only) await runScenario(s);
-console.log(`peak RSS ${(process.resourceUsage().maxRSS / 1024).toFixed(0)} MB (whole benchmark process, all scenarios)`);
+/**
+ * Each scenario runs in its own process so its peak RSS is its own (worker threads included:
+ * they share the process).
+ */
+const child = process.argv.indexOf('--scenario');
+if (child >= 0) {
+  await runScenario(scenarios[Number(process.argv[child + 1])]);
+  console.log(`${''.padEnd(38)} peak RSS ${(process.resourceUsage().maxRSS / 1024).toFixed(0)} MB`);
+} else {
+  const only = process.argv[2];
+  console.log(`area model: ${CHAINS} chains × (${WARMUP} warmup + ${DRAWS} draws), 3 covariates`);
+  scenarios.forEach((s, k) => {
+    if (only && s.method !== only) return;
+    spawnSync(process.execPath, [fileURLToPath(import.meta.url), '--scenario', String(k)], { stdio: 'inherit' });
+  });
+}

@@ -158,20 +158,33 @@ export function manifestJson(m: ManifestInput): string {
   return JSON.stringify(manifest, jsonNumbers, 2) + '\n';
 }
 
-/** Draws as float32, quantity-major then chain then draw (documented in DEVELOPERS.md). */
+/** Quantities per chunk of draws.bin: bounds the memory the writer holds at once. */
+const DRAWS_CHUNK_QUANTITIES = 64;
+
+/**
+ * Draws as float32, quantity-major then chain then draw (documented in DEVELOPERS.md), produced
+ * in chunks of quantities so a large run is never held twice in memory.
+ */
 export function drawsFiles(
   names: readonly string[],
   chains: ReadonlyArray<{ draws: number; values: Float64Array }>,
-): { json: string; bin: Uint8Array } {
+): { json: string; bin: Iterable<Uint8Array> } {
   const C = chains.length;
   const D = chains[0].draws;
-  const out = new Float32Array(names.length * C * D);
-  for (let q = 0; q < names.length; q++)
-    for (let c = 0; c < C; c++) out.set(chains[c].values.subarray(q * D, (q + 1) * D), (q * C + c) * D);
+  function* chunks(): Generator<Uint8Array> {
+    for (let first = 0; first < names.length; first += DRAWS_CHUNK_QUANTITIES) {
+      const last = Math.min(first + DRAWS_CHUNK_QUANTITIES, names.length);
+      const out = new Float32Array((last - first) * C * D);
+      for (let q = first; q < last; q++)
+        for (let c = 0; c < C; c++)
+          out.set(chains[c].values.subarray(q * D, (q + 1) * D), ((q - first) * C + c) * D);
+      yield new Uint8Array(out.buffer);
+    }
+  }
   const json = JSON.stringify(
     { dtype: 'float32', byte_order: 'little', quantities: names, chains: C, draws_per_chain: D },
     null,
     2,
   );
-  return { json: json + '\n', bin: new Uint8Array(out.buffer) };
+  return { json: json + '\n', bin: { [Symbol.iterator]: chunks } };
 }

@@ -4,11 +4,27 @@
  * non-empty folder is left alone and reported.
  */
 import { existsSync } from 'node:fs';
-import { mkdir, readdir, rename, rm, writeFile } from 'node:fs/promises';
+import { mkdir, open, readdir, rename, rm, writeFile } from 'node:fs/promises';
 import { basename, dirname, join, resolve } from 'node:path';
 import { UserError } from '../errors.js';
 
-export type RunFiles = ReadonlyMap<string, string | Uint8Array>;
+/** A file's content: text, bytes, or bytes produced in chunks (large files, written as they come). */
+export type FileContent = string | Uint8Array | Iterable<Uint8Array>;
+
+export type RunFiles = ReadonlyMap<string, FileContent>;
+
+async function writeContent(path: string, content: FileContent): Promise<void> {
+  if (typeof content === 'string' || content instanceof Uint8Array) {
+    await writeFile(path, content);
+    return;
+  }
+  const handle = await open(path, 'w');
+  try {
+    for (const chunk of content) await handle.write(chunk);
+  } finally {
+    await handle.close();
+  }
+}
 
 /** Files that mark a folder as one of ours, safe to replace. */
 const RUN_MARKER = 'manifest.json';
@@ -36,7 +52,7 @@ export async function writeRunFolder(outDir: string, files: RunFiles): Promise<s
     await mkdir(temp, { recursive: true });
     for (const [name, content] of files) {
       await mkdir(dirname(join(temp, name)), { recursive: true });
-      await writeFile(join(temp, name), content);
+      await writeContent(join(temp, name), content);
     }
   } catch (error) {
     await rm(temp, { recursive: true, force: true });

@@ -11,7 +11,7 @@ import type { FileFingerprint } from '../data/types.js';
 import type { PreparedFit } from '../models/prepared.js';
 import { prepareFit } from './prepare.js';
 import { drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
-import { writeRunFolder } from '../output/run-folder.js';
+import { writeRunFolder, type FileContent } from '../output/run-folder.js';
 import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
 import type { ChainValues, QuantitySummary } from '../summaries/posterior.js';
 import { evaluateGate, siteEstimates, type GateResult, type SiteEstimate } from '../summaries/sites.js';
@@ -124,9 +124,9 @@ function runFolderFiles(
   settings: Settings,
   prepared: PreparedFit,
   r: FitProducts,
-): Map<string, string | Uint8Array> {
+): Map<string, FileContent> {
   const draws = drawsFiles(r.names, r.chains);
-  return new Map<string, string | Uint8Array>([
+  return new Map<string, FileContent>([
     ['estimates.csv', estimatesCsv(r.sites)],
     ['parameters.csv', parametersCsv(r.summaries)],
     ['diagnostics.csv', diagnosticsCsv(r.summaries)],
