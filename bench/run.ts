@@ -6,12 +6,14 @@
  * site, peak RSS. Run twice: a clear between-site spread, and σ_u near zero (the corner where
  * plain Gibbs stalls), each with the default collapsed sampler and with plain Gibbs beside it.
  * Targets on a 2-core machine: ≤ 5 s, ESS per draw for σ_u ≥ 0.5, peak RSS ≤ 600 MB.
+ * The first scenario also renders its PDF report (target ≤ 60 s) and counts its pages.
  */
 import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { performance } from 'node:perf_hooks';
 import { runFit } from '../src/pipeline/fit.js';
+import { renderReport } from '../src/report/index.js';
 import { createRng } from '../src/sampler/rng.js';
 import { normal } from '../src/sampler/variates.js';
 import { readFile } from 'node:fs/promises';
@@ -23,6 +25,8 @@ interface Scenario {
   sites: number;
   siteSd: number;
   method: 'collapsed' | 'plain';
+  /** Also render the PDF report of the run and time it. */
+  report?: boolean;
 }
 
 const CHAINS = 4;
@@ -90,13 +94,22 @@ async function runScenario(s: Scenario): Promise<void> {
         `ESS/s σ_u ${Math.round(ess.sigma / seconds)}, median site ${Math.round(ess.medianSite / seconds)}  ` +
         `converged ${outcome.converged}`,
     );
+    if (s.report) {
+      const begin = performance.now();
+      const report = await renderReport(outcome.runDir);
+      const reportSeconds = (performance.now() - begin) / 1000;
+      console.log(
+        `${''.padEnd(38)} report: ${reportSeconds.toFixed(1)} s, ${report.pages ?? 0} pages` +
+          (report.warning ? ` (${report.warning})` : ''),
+      );
+    }
   } finally {
     rmSync(dir, { recursive: true, force: true });
   }
 }
 
 const scenarios: Scenario[] = [
-  { name: '3000 sites, σ_u = 0.5', sites: 3000, siteSd: 0.5, method: 'collapsed' },
+  { name: '3000 sites, σ_u = 0.5', sites: 3000, siteSd: 0.5, method: 'collapsed', report: true },
   { name: '3000 sites, σ_u = 0.01', sites: 3000, siteSd: 0.01, method: 'collapsed' },
   { name: '3000 sites, σ_u = 0.5', sites: 3000, siteSd: 0.5, method: 'plain' },
   { name: '3000 sites, σ_u = 0.01', sites: 3000, siteSd: 0.01, method: 'plain' },
