@@ -145,6 +145,21 @@ describe('fit writes a complete, reproducible run folder', () => {
     for (const row of rows) expect(row).toMatch(/,suppress,.*convergence gate/);
   });
 
+  it('benchmarking writes the adjusted figures beside the unadjusted ones; bad weights are refused', () => {
+    const config = configFor('districts.csv', [], ['benchmark: { total: 2.5, weights: veg, method: difference }']);
+    const out = join(config, '..', 'run');
+    const r = run(['fit', config, '--out', out]);
+    expect(r.code, r.stderr).toBe(0);
+    const rows = readFileSync(join(out, 'benchmarked.csv'), 'utf8').trim().split('\n');
+    expect(rows[0]).toBe('site,label,estimate,sd,lower,upper,estimate_unadjusted,flag');
+    const summary = JSON.parse(readFileSync(join(out, 'summary.json'), 'utf8'));
+    expect(summary.benchmark.method).toBe('difference');
+    const bad = configFor('districts.csv', [], ['benchmark: { total: 2.5, weights: name }']);
+    const failed = run(['fit', bad, '--out', join(bad, '..', 'run')]);
+    expect(failed.code).toBe(EXIT.data);
+    expect(failed.stderr.trim()).toMatch(/line 2, column "name": .* is not a number/);
+  });
+
   it('refuses to overwrite a folder that is not a run folder', () => {
     const config = configFor('districts.csv');
     const out = join(config, '..', 'precious');

@@ -78,6 +78,9 @@ function requiredForKind(config: ConfigParsed): Problem[] {
   } else if (model.kind === 'unit') {
     if (config.units === undefined) problems.push(missing(['units'], 'the file with one row per sampled unit'));
     if (model.response === undefined) problems.push(missing(['model', 'response'], 'the survey variable in the units file'));
+    if (model.finite_population === true && model.population_size === undefined) {
+      problems.push({ path: ['model', 'population_size'], message: 'required with model.finite_population: true (the column of population sizes N_i in the sites file)' });
+    }
   } else {
     if (model.cases === undefined) problems.push(missing(['model', 'cases'], 'the column with the number of cases per site'));
     if (model.trials === undefined) problems.push(missing(['model', 'trials'], 'the column with the number of trials per site'));
@@ -121,9 +124,9 @@ export function crossFieldProblems(config: ConfigParsed): Problem[] {
 
 /** Keys that a model kind ignores, so that a stray key is noticed rather than silently dropped. */
 const IGNORED_BY_KIND: Readonly<Record<ModelKind, readonly string[][]>> = {
-  area: [['units'], ['model', 'response'], ['model', 'cases'], ['model', 'trials'], ['model', 'population_size'], ['model', 'priors', 'unit_sd']],
+  area: [['units'], ['model', 'response'], ['model', 'cases'], ['model', 'trials'], ['model', 'population_size'], ['model', 'finite_population'], ['model', 'priors', 'unit_sd']],
   unit: [['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'design_effect'], ['model', 'cases'], ['model', 'trials']],
-  counts: [['units'], ['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'design_effect'], ['model', 'response'], ['model', 'population_size'], ['model', 'priors', 'unit_sd']],
+  counts: [['units'], ['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'design_effect'], ['model', 'response'], ['model', 'population_size'], ['model', 'finite_population'], ['model', 'priors', 'unit_sd']],
 };
 
 /** Warnings: things that run, but probably not as the analyst meant. */
@@ -138,6 +141,9 @@ export function configWarnings(config: ConfigParsed, raw: unknown): string[] {
   const kind = config.model.kind;
   for (const path of IGNORED_BY_KIND[kind]) {
     if (isGiven(raw, path)) warnings.push(`${path.join('.')} is not used by ${aModel(kind)} and is ignored`);
+  }
+  if (kind === 'unit' && config.model.population_size !== undefined && config.model.finite_population !== true) {
+    warnings.push('model.population_size is used only with model.finite_population: true; without it the target is the model mean X̄ᵀβ + u_i');
   }
   if (kind === 'area' && varianceFrom(config.model) === 'column' && isGiven(raw, ['model', 'design_effect'])) {
     warnings.push('model.design_effect is ignored when the sampling variance is read from a column (model.variance); that column should already include the design effect');
@@ -196,5 +202,6 @@ export function resolveSettings(config: ConfigParsed, configPath: string): Setti
       template: config.report.template && resolvePath(folder, config.report.template),
       map: config.report.map && { ...config.report.map, file: resolvePath(folder, config.report.map.file) },
     }),
+    benchmark: config.benchmark && { ...config.benchmark },
   });
 }

@@ -170,6 +170,15 @@ const units = keys({
     .min(1)
     .describe('CSV file with one row per sampled unit (household, plot), relative to this config file.'),
   site: z.string().min(1).describe('Column giving the site id of each unit.'),
+  aggregated: z
+    .boolean()
+    .optional()
+    .describe(
+      'true: the file holds per-site sums instead of unit rows (one row per site, or several ' +
+        'that are added up), as produced by the aggregation query in the README: n_units, ' +
+        'sum_<column> and sum_<column>_times_<column> for the covariates and the response. ' +
+        'Default false: one row per sampled unit.',
+    ),
 }).describe('Unit model only: the unit-level survey file.');
 
 const priors = keys({
@@ -233,6 +242,14 @@ const model = keys({
   population_size: columnName(
     'the population size N_i (unit model, optional: finite-population estimates)',
   ).optional(),
+  finite_population: z
+    .boolean()
+    .optional()
+    .describe(
+      'Unit model: true estimates each site\'s finite-population mean (its sampled units as ' +
+        'observed plus model predictions for the units not sampled; needs model.population_size). ' +
+        'Default false: the model mean X̄ᵀβ + u_i, which differs little when few units per site are sampled.',
+    ),
   covariates: z
     .array(z.string().min(1))
     .default([])
@@ -363,6 +380,32 @@ const report = keys({
     .describe('Site boundaries for the maps in the report. Default: no maps.'),
 }).describe('How the report is rendered.');
 
+const benchmark = keys({
+  total: z
+    .number()
+    .refine(Number.isFinite, 'must be a finite number')
+    .describe(
+      'The reliable figure the sites must add up to: the weighted sum Σ weight_i × estimate_i ' +
+        '(e.g. the regional mean with population shares as weights, or a regional total with ' +
+        'population counts).',
+    ),
+  weights: z
+    .string()
+    .min(1)
+    .describe('Column of the sites file holding each site\'s weight (population share or count); all ≥ 0, not all 0.'),
+  method: z
+    .enum(['ratio', 'difference'])
+    .default('ratio')
+    .describe(
+      'ratio (default): every draw of every site is multiplied by total / weighted sum; ' +
+        'difference: the same amount is added to every site. Applied draw by draw, so the ' +
+        'benchmarked intervals carry the uncertainty of the adjustment.',
+    ),
+}).describe(
+  'Optional: make the site estimates add up to a reliable published total. Both the adjusted ' +
+    'and the unadjusted figures are kept.',
+);
+
 /** The config file, as written by the analyst. */
 export const configSchema = keys({
   title: z.string().min(1).describe('Title of the run and the report.'),
@@ -380,6 +423,7 @@ export const configSchema = keys({
     .default(0.95)
     .describe('Probability of the equal-tailed credible intervals. Default 0.95.'),
   report: report.prefault({}),
+  benchmark: benchmark.optional(),
 }).describe('A shrinkwell run: the data, the model, the sampler and the publication rules.');
 
 /** The config as written (defaults not yet filled in). */

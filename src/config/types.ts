@@ -81,4 +81,6 @@ export interface Settings {
     /** Site boundaries for the maps (GeoJSON) and the property holding the site id. */
     map?: { file: string; id_property: string };
   };
+  /** Make the weighted sum of site estimates equal a reliable total (draw by draw). */
+  benchmark?: { total: number; weights: string; method: 'ratio' | 'difference' };
 }

@@ -55,8 +55,9 @@ export function areaQuantities(data: AreaData): string[] {
 /** The sampled sites packed contiguously, so hot loops touch no unsampled rows. */
 interface Packed {
   p: number;
-  /** Number of sampled sites. */
+  /** Number of sampled sites, and of all sites. */
   n: number;
+  m: number;
   X: Float64Array; // n × p
   y: Float64Array;
   psi: Float64Array;
@@ -110,6 +111,7 @@ function pack(spec: AreaModelSpec): Packed {
   return {
     p,
     n,
+    m: data.m,
     X,
     y,
     psi,
@@ -420,10 +422,12 @@ function updateForSweep(state: CollapsedState, phase: Phase, iteration: number):
 }
 
 /**
- * Cost of the rest of a sweep (β and θ draws, recording) in evaluations of the marginal: both
- * are one pass over the sites. Used to compare updates per unit of time, not per evaluation.
+ * Cost model of a sweep, in units of "one site's share of one pass": an evaluation of the
+ * marginal costs n (sampled sites), the β and θ draws and recording about 2m, and the fixed
+ * work of a sweep about SWEEP_FIXED_COST. Updates are compared per unit of time, so with few
+ * sites (where evaluations are nearly free) the one that moves σ farthest per draw wins.
  */
-const SWEEP_OVERHEAD = 2;
+const SWEEP_FIXED_COST = 500;
 
 /**
  * Warmup tuning from the window of sweeps since the last tuning point: slice widths of about
@@ -434,6 +438,7 @@ const SWEEP_OVERHEAD = 2;
  */
 function tuneSigmaUpdate(
   state: CollapsedState,
+  d: Packed,
   update: SigmaUpdate,
   previousSigma: number,
   evaluationsBefore: number,
@@ -467,7 +472,8 @@ function tuneSigmaUpdate(
     const evaluations = t[5 + 2 * k + 1];
     if (evaluations === 0) return;
     const sweeps = t[0] / SIGMA_UPDATES.length;
-    const efficiency = t[5 + 2 * k] / (evaluations + SWEEP_OVERHEAD * sweeps);
+    const cost = evaluations * d.n + sweeps * (2 * d.m + SWEEP_FIXED_COST);
+    const efficiency = t[5 + 2 * k] / cost;
     if (efficiency > best) {
       best = efficiency;
       state.update = u;
@@ -509,7 +515,7 @@ export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState>
       updateSigma(state, update, d, siteSd, rng);
       drawBetaFromFactor(state, p, rng);
       drawTheta(state.theta, data, state.beta, state.sigma * state.sigma, rng);
-      tuneSigmaUpdate(state, update, previousSigma, evaluationsBefore, phase, iteration);
+      tuneSigmaUpdate(state, d, update, previousSigma, evaluationsBefore, phase, iteration);
       return state;
     },
     record(state, out, stride, offset) {

@@ -7,6 +7,7 @@ import type { FileFingerprint } from '../data/types.js';
 import type { QuantitySummary } from '../summaries/posterior.js';
 import { countFlags, type GateResult, type SiteEstimate } from '../summaries/sites.js';
 import { csvText } from './csv.js';
+import type { BenchmarkResult } from '../summaries/benchmark.js';
 
 export const RUN_FORMAT = 'shrinkwell-run';
 export const RUN_FORMAT_VERSION = 1;
@@ -69,7 +70,18 @@ export function scalePriorNote(prior: ScalePrior, what: string): string {
   }
 }
 
+export function benchmarkedCsv(sites: readonly SiteEstimate[], b: BenchmarkResult): string {
+  return csvText(
+    ['site', 'label', 'estimate', 'sd', 'lower', 'upper', 'estimate_unadjusted', 'flag'],
+    sites.map((s, i) => {
+      const adjusted = b.sites[i];
+      return [s.site, s.label, adjusted.estimate, adjusted.sd, adjusted.lower, adjusted.upper, s.estimate, s.flag];
+    }),
+  );
+}
+
 export interface RunResults {
+  benchmark?: BenchmarkResult | null;
   settings: Settings;
   coefficientNames: string[];
   varianceNote: string;
@@ -115,6 +127,19 @@ export function summaryJson(r: RunResults): string {
       lowest_ess_tail: r.gate.lowestEssTail,
       failing: r.gate.failing,
     },
+    benchmark: r.benchmark && settings.benchmark
+      ? {
+          method: r.benchmark.method,
+          method_note:
+            r.benchmark.method === 'ratio'
+              ? 'Ratio benchmarking applied draw by draw: every draw of every site multiplied by total / weighted sum (Pfeffermann 2013, Statistical Science 28(1), §7).'
+              : 'Difference benchmarking applied draw by draw: the same amount added to every site so the weighted sum meets the total (Pfeffermann 2013, Statistical Science 28(1), §7).',
+          total: r.benchmark.total,
+          weights: settings.benchmark.weights,
+          unadjusted_sum: r.benchmark.unadjustedSum,
+          adjustment: r.benchmark.adjustment,
+        }
+      : null,
     counts: {
       sites: r.sites.length,
       sampled: r.sites.filter((s) => s.n !== 0).length,

@@ -10,7 +10,9 @@ import type { Settings } from '../config/types.js';
 import type { FileFingerprint } from '../data/types.js';
 import type { PreparedFit } from '../models/prepared.js';
 import { prepareFit } from './prepare.js';
-import { drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
+import { loadBenchmarkWeights } from '../data/weights.js';
+import { benchmarkDraws, type BenchmarkResult } from '../summaries/benchmark.js';
+import { benchmarkedCsv, drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
 import { writeRunFolder, type FileContent } from '../output/run-folder.js';
 import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
 import type { ChainValues, QuantitySummary } from '../summaries/posterior.js';
@@ -49,6 +51,17 @@ async function sha256File(path: string): Promise<string> {
   return createHash('sha256').update(await readFile(path)).digest('hex');
 }
 
+/** A large benchmarking adjustment usually means the total and the weights are on different scales. */
+function warnIfFarFromOne(b: BenchmarkResult, weights: string, onWarning?: (message: string) => void): void {
+  const factor = b.total / b.unadjustedSum.mean;
+  if (factor > 0.5 && factor < 2) return;
+  onWarning?.(
+    `benchmark: the weighted sum of the estimates (${b.unadjustedSum.mean.toPrecision(4)}) is far from the total ` +
+      `(${b.total}); check that benchmark.total and the weights in column "${weights}" are on the same scale ` +
+      '(shares with a mean, counts with a total)',
+  );
+}
+
 /** The boundary file of the report, fingerprinted like the data (it is an input of the report). */
 async function mapFingerprint(settings: Settings, onWarning?: (message: string) => void): Promise<FileFingerprint | null> {
   const file = settings.report.map?.file;
@@ -76,6 +89,7 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   const { settings, warnings } = await loadConfig(options.configPath);
   warnings.forEach((w) => options.onWarning?.(w));
   const prepared = await prepareFit(settings);
+  const benchmarkWeights = await loadBenchmarkWeights(settings);
   const map = await mapFingerprint(settings, options.onWarning);
   if (map) prepared.files.push(map);
   const configSha256 = await sha256File(settings.config_path);
@@ -98,10 +112,21 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
   const weights = prepared.weightDirect((quantity) => pooledDraws(chains, names.indexOf(quantity)));
   const sites = siteEstimates(prepared.sites, byName, weights, settings.reliability, gate);
+  const benchmark = benchmarkWeights && settings.benchmark
+    ? benchmarkDraws(
+        chains,
+        prepared.sites.siteIds.map((id) => names.indexOf(`site:${id}`)),
+        benchmarkWeights,
+        settings.benchmark.total,
+        settings.benchmark.method,
+        settings.interval,
+      )
+    : null;
+  if (benchmark && settings.benchmark) warnIfFarFromOne(benchmark, settings.benchmark.weights, options.onWarning);
   timingsMs.summarize = lap();
 
   const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
-    names, chains, summaries, sites, gate, threads, configSha256, command: options.command, timingsMs,
+    names, chains, summaries, sites, gate, benchmark, threads, configSha256, command: options.command, timingsMs,
   }));
   timingsMs.write = lap();
   timingsMs.total = Math.round(performance.now() - clock);
@@ -114,6 +139,7 @@ interface FitProducts {
   summaries: QuantitySummary[];
   sites: SiteEstimate[];
   gate: GateResult;
+  benchmark: BenchmarkResult | null;
   threads: number;
   configSha256: string;
   command: string[];
@@ -140,6 +166,7 @@ function runFolderFiles(
         sites: r.sites,
         gate: r.gate,
         threads: r.threads,
+        benchmark: r.benchmark,
       }),
     ],
     [
@@ -155,6 +182,7 @@ function runFolderFiles(
         createdAt: new Date().toISOString(),
       }),
     ],
+    ...(r.benchmark ? ([['benchmarked.csv', benchmarkedCsv(r.sites, r.benchmark)]] as Array<[string, FileContent]>) : []),
     ['draws.json', draws.json],
     ['draws.bin', draws.bin],
   ]);
