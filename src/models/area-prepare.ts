@@ -2,6 +2,7 @@
 import type { Settings } from '../config/types.js';
 import type { AreaData, FileFingerprint } from '../data/types.js';
 import { areaQuantities } from './area.js';
+import { areaEblup } from '../summaries/frequentist.js';
 import type { PreparedFit, SiteInputs } from './prepared.js';
 
 function covariatesWithoutIntercept(data: AreaData): Float64Array {
@@ -62,5 +63,6 @@ export function prepareArea(settings: Settings, data: AreaData, files: FileFinge
     files,
     varianceNote: data.varianceNote,
     weightDirect: (pooled) => areaWeights(data, pooled('site_sd')),
+    frequentist: () => areaEblup(data, 'REML'),
   };
 }

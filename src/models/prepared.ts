@@ -7,6 +7,7 @@
 import type { ModelKind } from '../config/types.js';
 import type { FileFingerprint } from '../data/types.js';
 import type { ModelSpec } from './index.js';
+import type { FrequentistFit } from '../summaries/frequentist.js';
 
 /** Per-site survey (direct) figures and covariates, as the outputs and flags need them. */
 export interface SiteInputs {
@@ -39,4 +40,6 @@ export interface PreparedFit {
    * pooled draws of the named parameters; 0 for unsampled sites.
    */
   weightDirect(pooled: (quantity: string) => Float64Array): Float64Array;
+  /** The frequentist cross-check (EBLUP) of this model, where one is available. */
+  frequentist?: () => FrequentistFit;
 }

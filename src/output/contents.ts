@@ -8,6 +8,7 @@ import type { QuantitySummary } from '../summaries/posterior.js';
 import { countFlags, type GateResult, type SiteEstimate } from '../summaries/sites.js';
 import { csvText } from './csv.js';
 import type { BenchmarkResult } from '../summaries/benchmark.js';
+import type { FrequentistComparison, FrequentistFit } from '../summaries/frequentist.js';
 
 export const RUN_FORMAT = 'shrinkwell-run';
 export const RUN_FORMAT_VERSION = 1;
@@ -82,6 +83,7 @@ export function benchmarkedCsv(sites: readonly SiteEstimate[], b: BenchmarkResul
 
 export interface RunResults {
   benchmark?: BenchmarkResult | null;
+  frequentist?: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
   settings: Settings;
   coefficientNames: string[];
   varianceNote: string;
@@ -138,6 +140,19 @@ export function summaryJson(r: RunResults): string {
           weights: settings.benchmark.weights,
           unadjusted_sum: r.benchmark.unadjustedSum,
           adjustment: r.benchmark.adjustment,
+        }
+      : null,
+    frequentist: r.frequentist
+      ? {
+          method: r.frequentist.fit.method,
+          site_variance: r.frequentist.fit.siteVariance,
+          at_boundary: r.frequentist.fit.atBoundary,
+          converged: r.frequentist.fit.converged,
+          largest_difference_sd: r.frequentist.comparison.largestDifference,
+          mean_difference_sd: r.frequentist.comparison.meanDifference,
+          rmse_over_sd: r.frequentist.comparison.rmseOverSd,
+          reading: r.frequentist.comparison.reading,
+          mse_note: r.frequentist.fit.mseNote,
         }
       : null,
     counts: {

@@ -10,6 +10,9 @@ import type { Settings } from '../config/types.js';
 import type { FileFingerprint } from '../data/types.js';
 import type { PreparedFit } from '../models/prepared.js';
 import { prepareFit } from './prepare.js';
+import { UserError } from '../errors.js';
+import { frequentistCsv, frequentistJson } from '../output/frequentist.js';
+import { compareWithPosterior, type FrequentistComparison, type FrequentistFit } from '../summaries/frequentist.js';
 import { loadBenchmarkWeights } from '../data/weights.js';
 import { benchmarkDraws, type BenchmarkResult } from '../summaries/benchmark.js';
 import { benchmarkedCsv, drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
@@ -49,6 +52,27 @@ function pooledDraws(chains: readonly ChainValues[], q: number): Float64Array {
 
 async function sha256File(path: string): Promise<string> {
   return createHash('sha256').update(await readFile(path)).digest('hex');
+}
+
+/**
+ * The frequentist cross-check beside the posterior. A failure (e.g. too few sites for the
+ * frequentist fit, which a proper prior can still handle) is a warning, not a failed run.
+ */
+function frequentistCrossCheck(
+  prepared: PreparedFit,
+  sites: readonly SiteEstimate[],
+  onWarning?: (message: string) => void,
+): { fit: FrequentistFit; comparison: FrequentistComparison } | null {
+  if (!prepared.frequentist) return null;
+  try {
+    const fit = prepared.frequentist();
+    const comparison = compareWithPosterior(fit, sites.map((s) => ({ mean: s.estimate, sd: s.sd })));
+    return { fit, comparison };
+  } catch (error) {
+    if (!(error instanceof UserError)) throw error;
+    onWarning?.(`frequentist cross-check skipped: ${error.message}`);
+    return null;
+  }
 }
 
 /** A large benchmarking adjustment usually means the total and the weights are on different scales. */
@@ -123,10 +147,11 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
       )
     : null;
   if (benchmark && settings.benchmark) warnIfFarFromOne(benchmark, settings.benchmark.weights, options.onWarning);
+  const frequentist = frequentistCrossCheck(prepared, sites, options.onWarning);
   timingsMs.summarize = lap();
 
   const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
-    names, chains, summaries, sites, gate, benchmark, threads, configSha256, command: options.command, timingsMs,
+    names, chains, summaries, sites, gate, benchmark, frequentist, threads, configSha256, command: options.command, timingsMs,
   }));
   timingsMs.write = lap();
   timingsMs.total = Math.round(performance.now() - clock);
@@ -140,6 +165,7 @@ interface FitProducts {
   sites: SiteEstimate[];
   gate: GateResult;
   benchmark: BenchmarkResult | null;
+  frequentist: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
   threads: number;
   configSha256: string;
   command: string[];
@@ -167,8 +193,15 @@ function runFolderFiles(
         gate: r.gate,
         threads: r.threads,
         benchmark: r.benchmark,
+        frequentist: r.frequentist,
       }),
     ],
+    ...(r.frequentist
+      ? ([
+          ['frequentist.csv', frequentistCsv(r.frequentist.fit)],
+          ['frequentist.json', frequentistJson(r.frequentist.fit)],
+        ] as Array<[string, FileContent]>)
+      : []),
     [
       'manifest.json',
       manifestJson({
