@@ -3,6 +3,7 @@ import type { Settings } from '../config/types.js';
 import type { AreaData, FileFingerprint } from '../data/types.js';
 import { areaQuantities } from './area.js';
 import { areaEblup } from '../summaries/frequentist.js';
+import { exactAreaPosterior } from '../summaries/exact.js';
 import type { PreparedFit, SiteInputs } from './prepared.js';
 
 function covariatesWithoutIntercept(data: AreaData): Float64Array {
@@ -47,6 +48,19 @@ export function areaWeights(data: AreaData, siteSdDraws: Float64Array): Float64A
   return weights;
 }
 
+/** Exact posterior means of every monitored quantity (β, σ_u, every θ_i) by quadrature. */
+export function areaExactMeans(settings: Settings, data: AreaData): Map<string, number> {
+  const exact = exactAreaPosterior(data, {
+    coefficients: settings.model.priors.coefficients,
+    site_sd: settings.model.priors.site_sd,
+  });
+  const means = new Map<string, number>();
+  data.coefficientNames.forEach((name, j) => means.set(`coef:${name}`, exact.coefficients[j].mean));
+  means.set('site_sd', exact.siteSd.mean);
+  data.siteIds.forEach((id, i) => means.set(`site:${id}`, exact.sites[i].mean));
+  return means;
+}
+
 export function prepareArea(settings: Settings, data: AreaData, files: FileFingerprint[]): PreparedFit {
   return {
     kind: 'area',
@@ -64,5 +78,6 @@ export function prepareArea(settings: Settings, data: AreaData, files: FileFinge
     varianceNote: data.varianceNote,
     weightDirect: (pooled) => areaWeights(data, pooled('site_sd')),
     frequentist: () => areaEblup(data, 'REML'),
+    exactMeans: () => areaExactMeans(settings, data),
   };
 }

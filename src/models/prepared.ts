@@ -42,4 +42,6 @@ export interface PreparedFit {
   weightDirect(pooled: (quantity: string) => Float64Array): Float64Array;
   /** The frequentist cross-check (EBLUP) of this model, where one is available. */
   frequentist?: () => FrequentistFit;
+  /** Exact posterior means by numerical integration, by quantity name, where available. */
+  exactMeans?: () => Map<string, number>;
 }

@@ -8,6 +8,7 @@ import type { QuantitySummary } from '../summaries/posterior.js';
 import { countFlags, type GateResult, type SiteEstimate } from '../summaries/sites.js';
 import { csvText } from './csv.js';
 import type { BenchmarkResult } from '../summaries/benchmark.js';
+import type { Certificate } from '../summaries/certificate.js';
 import type { FrequentistComparison, FrequentistFit } from '../summaries/frequentist.js';
 
 export const RUN_FORMAT = 'shrinkwell-run';
@@ -81,7 +82,12 @@ export function benchmarkedCsv(sites: readonly SiteEstimate[], b: BenchmarkResul
   );
 }
 
+export function certificateCsv(c: Certificate): string {
+  return csvText(['quantity', 'gibbs_mean', 'exact_mean', 'mcse', 'z'], c.rows.map((r) => [r.quantity, r.gibbs, r.exact, r.mcse, r.z]));
+}
+
 export interface RunResults {
+  certificate?: Certificate | null;
   benchmark?: BenchmarkResult | null;
   frequentist?: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
   settings: Settings;
@@ -140,6 +146,18 @@ export function summaryJson(r: RunResults): string {
           weights: settings.benchmark.weights,
           unadjusted_sum: r.benchmark.unadjustedSum,
           adjustment: r.benchmark.adjustment,
+        }
+      : null,
+    certificate: r.certificate
+      ? {
+          note:
+            'Gibbs posterior means against the exact posterior by numerical integration over the between-site sd ' +
+            '(coefficients and site effects integrated out analytically), in units of Monte Carlo standard error; ' +
+            `bound for all quantities together at a 1% false-alarm rate (Bonferroni).`,
+          quantities: r.certificate.rows.length,
+          worst: r.certificate.worst,
+          bound: r.certificate.bound,
+          all_within: r.certificate.allWithin,
         }
       : null,
     frequentist: r.frequentist

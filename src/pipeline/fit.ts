@@ -11,11 +11,12 @@ import type { FileFingerprint } from '../data/types.js';
 import type { PreparedFit } from '../models/prepared.js';
 import { prepareFit } from './prepare.js';
 import { UserError } from '../errors.js';
+import { samplerCertificate, type Certificate } from '../summaries/certificate.js';
 import { frequentistCsv, frequentistJson } from '../output/frequentist.js';
 import { compareWithPosterior, type FrequentistComparison, type FrequentistFit } from '../summaries/frequentist.js';
 import { loadBenchmarkWeights } from '../data/weights.js';
 import { benchmarkDraws, type BenchmarkResult } from '../summaries/benchmark.js';
-import { benchmarkedCsv, drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
+import { benchmarkedCsv, certificateCsv, drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
 import { writeRunFolder, type FileContent } from '../output/run-folder.js';
 import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
 import type { ChainValues, QuantitySummary } from '../summaries/posterior.js';
@@ -71,6 +72,22 @@ function frequentistCrossCheck(
   } catch (error) {
     if (!(error instanceof UserError)) throw error;
     onWarning?.(`frequentist cross-check skipped: ${error.message}`);
+    return null;
+  }
+}
+
+/** The sampler certificate: Gibbs vs exact posterior means on this data, where exact means exist. */
+function certify(
+  prepared: PreparedFit,
+  summaries: ReadonlyMap<string, QuantitySummary>,
+  onWarning?: (message: string) => void,
+): Certificate | null {
+  if (!prepared.exactMeans) return null;
+  try {
+    return samplerCertificate(summaries, prepared.exactMeans());
+  } catch (error) {
+    if (!(error instanceof UserError)) throw error;
+    onWarning?.(`sampler certificate skipped: ${error.message}`);
     return null;
   }
 }
@@ -148,10 +165,11 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
     : null;
   if (benchmark && settings.benchmark) warnIfFarFromOne(benchmark, settings.benchmark.weights, options.onWarning);
   const frequentist = frequentistCrossCheck(prepared, sites, options.onWarning);
+  const certificate = certify(prepared, byName, options.onWarning);
   timingsMs.summarize = lap();
 
   const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
-    names, chains, summaries, sites, gate, benchmark, frequentist, threads, configSha256, command: options.command, timingsMs,
+    names, chains, summaries, sites, gate, benchmark, frequentist, certificate, threads, configSha256, command: options.command, timingsMs,
   }));
   timingsMs.write = lap();
   timingsMs.total = Math.round(performance.now() - clock);
@@ -166,6 +184,7 @@ interface FitProducts {
   gate: GateResult;
   benchmark: BenchmarkResult | null;
   frequentist: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
+  certificate: Certificate | null;
   threads: number;
   configSha256: string;
   command: string[];
@@ -194,8 +213,10 @@ function runFolderFiles(
         threads: r.threads,
         benchmark: r.benchmark,
         frequentist: r.frequentist,
+        certificate: r.certificate,
       }),
     ],
+    ...(r.certificate ? ([['certificate.csv', certificateCsv(r.certificate)]] as Array<[string, FileContent]>) : []),
     ...(r.frequentist
       ? ([
           ['frequentist.csv', frequentistCsv(r.frequentist.fit)],
