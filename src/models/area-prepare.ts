@@ -4,6 +4,7 @@ import type { AreaData, FileFingerprint } from '../data/types.js';
 import { areaQuantities } from './area.js';
 import { areaEblup } from '../summaries/frequentist.js';
 import { exactAreaPosterior } from '../summaries/exact.js';
+import { areaModelChecks } from '../summaries/model-checks.js';
 import type { PreparedFit, SiteInputs } from './prepared.js';
 
 function covariatesWithoutIntercept(data: AreaData): Float64Array {
@@ -79,5 +80,14 @@ export function prepareArea(settings: Settings, data: AreaData, files: FileFinge
     weightDirect: (pooled) => areaWeights(data, pooled('site_sd')),
     frequentist: () => areaEblup(data, 'REML'),
     exactMeans: () => areaExactMeans(settings, data),
+    modelChecks: (pooled, estimates, rng) =>
+      areaModelChecks(
+        data,
+        (i) => pooled(`site:${data.siteIds[i]}`),
+        data.coefficientNames.map((name) => pooled(`coef:${name}`)),
+        pooled('site_sd'),
+        estimates,
+        rng,
+      ),
   };
 }

@@ -8,6 +8,8 @@ import type { ModelKind } from '../config/types.js';
 import type { FileFingerprint } from '../data/types.js';
 import type { ModelSpec } from './index.js';
 import type { FrequentistFit } from '../summaries/frequentist.js';
+import type { ModelChecks } from '../summaries/model-checks.js';
+import type { Rng } from '../sampler/rng.js';
 
 /** Per-site survey (direct) figures and covariates, as the outputs and flags need them. */
 export interface SiteInputs {
@@ -44,4 +46,6 @@ export interface PreparedFit {
   frequentist?: () => FrequentistFit;
   /** Exact posterior means by numerical integration, by quantity name, where available. */
   exactMeans?: () => Map<string, number>;
+  /** Posterior predictive checks of the model against the data, where available. */
+  modelChecks?: (pooled: (quantity: string) => Float64Array, estimates: Float64Array, rng: Rng) => ModelChecks;
 }

@@ -9,6 +9,7 @@ import { countFlags, type GateResult, type SiteEstimate } from '../summaries/sit
 import { csvText } from './csv.js';
 import type { BenchmarkResult } from '../summaries/benchmark.js';
 import type { Certificate } from '../summaries/certificate.js';
+import type { ModelChecks } from '../summaries/model-checks.js';
 import type { FrequentistComparison, FrequentistFit } from '../summaries/frequentist.js';
 
 export const RUN_FORMAT = 'shrinkwell-run';
@@ -86,7 +87,15 @@ export function certificateCsv(c: Certificate): string {
   return csvText(['quantity', 'gibbs_mean', 'exact_mean', 'mcse', 'z'], c.rows.map((r) => [r.quantity, r.gibbs, r.exact, r.mcse, r.z]));
 }
 
+export function modelChecksCsv(c: ModelChecks): string {
+  return csvText(
+    ['site', 'ppp', 'std_residual', 'extreme'],
+    c.sites.map((s) => [s.site, s.ppp, s.residual, Number.isNaN(s.ppp) ? '' : s.extreme ? 'yes' : 'no']),
+  );
+}
+
 export interface RunResults {
+  checks?: ModelChecks | null;
   certificate?: Certificate | null;
   benchmark?: BenchmarkResult | null;
   frequentist?: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
@@ -146,6 +155,20 @@ export function summaryJson(r: RunResults): string {
           weights: settings.benchmark.weights,
           unadjusted_sum: r.benchmark.unadjustedSum,
           adjustment: r.benchmark.adjustment,
+        }
+      : null,
+    model_checks: r.checks
+      ? {
+          note:
+            'Posterior predictive p-value of each direct estimate, P(y_rep ≥ y | data), and of the discrepancy ' +
+            'Σ (y − θ)²/ψ overall (Gelman, Meng & Stern 1996); standardized residuals (y − xβ)/√(ψ + σ_u²). ' +
+            `Sites whose p-value lies in the outer ${100 * r.checks.extremeLevel}% are listed as extreme ` +
+            '(about that share of sites is expected by chance).',
+          overall_ppp: r.checks.overallPpp,
+          extreme_level: r.checks.extremeLevel,
+          extreme_sites: r.checks.sites.filter((s) => s.extreme).map((s) => s.site),
+          mean_direct: r.checks.meanDirect,
+          mean_model: r.checks.meanModel,
         }
       : null,
     certificate: r.certificate

@@ -12,11 +12,13 @@ import type { PreparedFit } from '../models/prepared.js';
 import { prepareFit } from './prepare.js';
 import { UserError } from '../errors.js';
 import { samplerCertificate, type Certificate } from '../summaries/certificate.js';
+import type { ModelChecks } from '../summaries/model-checks.js';
+import { createRng } from '../sampler/rng.js';
 import { frequentistCsv, frequentistJson } from '../output/frequentist.js';
 import { compareWithPosterior, type FrequentistComparison, type FrequentistFit } from '../summaries/frequentist.js';
 import { loadBenchmarkWeights } from '../data/weights.js';
 import { benchmarkDraws, type BenchmarkResult } from '../summaries/benchmark.js';
-import { benchmarkedCsv, certificateCsv, drawsFiles, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
+import { benchmarkedCsv, certificateCsv, drawsFiles, modelChecksCsv, diagnosticsCsv, estimatesCsv, manifestJson, parametersCsv, summaryJson } from '../output/contents.js';
 import { writeRunFolder, type FileContent } from '../output/run-folder.js';
 import { defaultThreads, sampleChains, summarizeChains } from '../sampler/parallel.js';
 import type { ChainValues, QuantitySummary } from '../summaries/posterior.js';
@@ -42,6 +44,9 @@ export interface FitOutcome {
   settings: Settings;
   timingsMs: Record<string, number>;
 }
+
+/** The random stream of the model checks' replicates: far from the chains' streams 0, 1, …. */
+const MODEL_CHECK_STREAM = 1_000_000;
 
 /** Pooled draws of one quantity over all chains. */
 function pooledDraws(chains: readonly ChainValues[], q: number): Float64Array {
@@ -166,10 +171,15 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   if (benchmark && settings.benchmark) warnIfFarFromOne(benchmark, settings.benchmark.weights, options.onWarning);
   const frequentist = frequentistCrossCheck(prepared, sites, options.onWarning);
   const certificate = certify(prepared, byName, options.onWarning);
+  const checks = prepared.modelChecks?.(
+    (quantity) => pooledDraws(chains, names.indexOf(quantity)),
+    Float64Array.from(sites, (s) => s.estimate),
+    createRng(sampling.seed, MODEL_CHECK_STREAM),
+  ) ?? null;
   timingsMs.summarize = lap();
 
   const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
-    names, chains, summaries, sites, gate, benchmark, frequentist, certificate, threads, configSha256, command: options.command, timingsMs,
+    names, chains, summaries, sites, gate, benchmark, frequentist, certificate, checks, threads, configSha256, command: options.command, timingsMs,
   }));
   timingsMs.write = lap();
   timingsMs.total = Math.round(performance.now() - clock);
@@ -185,6 +195,7 @@ interface FitProducts {
   benchmark: BenchmarkResult | null;
   frequentist: { fit: FrequentistFit; comparison: FrequentistComparison } | null;
   certificate: Certificate | null;
+  checks: ModelChecks | null;
   threads: number;
   configSha256: string;
   command: string[];
@@ -214,8 +225,10 @@ function runFolderFiles(
         benchmark: r.benchmark,
         frequentist: r.frequentist,
         certificate: r.certificate,
+        checks: r.checks,
       }),
     ],
+    ...(r.checks ? ([['model_checks.csv', modelChecksCsv(r.checks)]] as Array<[string, FileContent]>) : []),
     ...(r.certificate ? ([['certificate.csv', certificateCsv(r.certificate)]] as Array<[string, FileContent]>) : []),
     ...(r.frequentist
       ? ([
