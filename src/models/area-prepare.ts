@@ -51,10 +51,11 @@ export function areaWeights(data: AreaData, siteSdDraws: Float64Array): Float64A
 
 /** Exact posterior means of every monitored quantity (β, σ_u, every θ_i) by quadrature. */
 export function areaExactMeans(settings: Settings, data: AreaData): Map<string, number> {
-  const exact = exactAreaPosterior(data, {
-    coefficients: settings.model.priors.coefficients,
-    site_sd: settings.model.priors.site_sd,
-  });
+  const exact = exactAreaPosterior(
+    data,
+    { coefficients: settings.model.priors.coefficients, site_sd: settings.model.priors.site_sd },
+    [], // means only
+  );
   const means = new Map<string, number>();
   data.coefficientNames.forEach((name, j) => means.set(`coef:${name}`, exact.coefficients[j].mean));
   means.set('site_sd', exact.siteSd.mean);

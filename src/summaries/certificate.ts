@@ -39,7 +39,8 @@ export function samplerCertificate(
   const rows: CertificateRow[] = [];
   for (const [quantity, exact] of exactMeans) {
     const q = summaries.get(quantity);
-    if (!q) continue;
+    // A posterior mean that does not exist (heavy tail: Infinity) cannot be certified.
+    if (!q || !Number.isFinite(exact)) continue;
     rows.push({ quantity, gibbs: q.mean, exact, mcse: q.mcseMean, z: (q.mean - exact) / q.mcseMean });
   }
   const bound = normalQuantile(1 - CERTIFICATE_ALPHA / (2 * Math.max(rows.length, 1)));

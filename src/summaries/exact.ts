@@ -33,14 +33,21 @@
  * Every marginal posterior is therefore a continuous mixture of normals over p(σ² | y).
  *
  * ## Integration
- * On t = log σ (density p(t | y) = p(σ² | y) · 2σ²), with the trapezoid rule on a uniform grid
- * around the mode that reaches out to where the log density has dropped by ≥ 40 on both sides.
- * For a smooth integrand decaying at both ends the trapezoid rule converges geometrically in
- * 1/h (Trefethen & Weideman 2014, "The exponentially convergent trapezoidal rule", SIAM Review
- * 56(3), §5): with h ≤ (local posterior scale)/5 and h ≤ 0.05 the error is far below 1e-10, which
- * a test checks by halving h. Partial integrals (the CDF of σ) are not covered by that argument,
- * so σ's quantiles use 4-point Gauss–Legendre on every grid interval. Quantiles of θ_i and β_j
- * invert the normal-mixture CDF by safeguarded Newton (bracketing + bisection) to 1e-10 sd.
+ * On t = log σ (density p(t | y) = p(σ² | y) · 2σ²), by the trapezoid rule on a uniform grid
+ * through the mode that reaches out to where the log density has dropped by ≥ 40 (e^{−40} ≈
+ * 4e-18) on both sides — on the right also until σ² · density has, so second moments are covered.
+ * For a smooth integrand that decays at both ends the trapezoid rule converges geometrically in
+ * 1/h: about 2 exp(−2π²s²/h²) for a locally Gaussian shape of sd s (Trefethen & Weideman 2014,
+ * "The exponentially convergent trapezoidal rule", SIAM Review 56(3) — recalled). With
+ * h = min(0.2, s/2), s the distance from the mode to a drop of ½, that is ≈ e^{−79}; if the log
+ * density bends faster anywhere within e^{−10} of the top (h²|ℓ''| > 1) the grid is halved. A test
+ * halves h and finds agreement to about 1e-10. Partial integrals (the CDF of σ) are not covered
+ * by that argument: σ's quantiles use 4-point Gauss–Legendre on every grid interval and Newton
+ * inside the interval holding the target. Quantiles of θ_i and β_j invert the normal-mixture CDF
+ * by Halley's method from a Cornish–Fisher start, kept in a bracket with bisection, to 1e-10 sd.
+ * Grid points where σ² < 1e-14 · min(ψ_i, ‖x_i‖²/trace P) are merged into one mixture component
+ * (no conditional changes there any more), and components whose weight · max(1, σ²/σ²_mode) is
+ * below 1e-16 of the heaviest are dropped.
  *
  * ## Tails and propriety
  * As σ → ∞ the density of t decays like e^{−κt} with r = n − p (flat β) or r = n (normal β),
@@ -79,7 +86,7 @@ export interface ExactAreaPosterior {
   sites: ExactSummary[];
   /** Posterior mean of γ_i = σ²/(σ² + ψ_i); 0 for sites without data. */
   weightDirect: Float64Array;
-  /** σ at the grid points and the normalised log density log p(σ | y) there. */
+  /** σ at the grid points (uniform in log σ) and the normalised log density log p(σ | y) there. */
   logDensityGrid?: { sigma: Float64Array; logDensity: Float64Array };
 }
 
@@ -215,8 +222,10 @@ function logPriorVariance(prior: ScalePrior, t: number): number {
   switch (prior.kind) {
     case 'uniform':
       return -t;
-    case 'half_cauchy':
-      return -t - Math.log1p(Math.exp(2 * (t - Math.log(prior.scale))));
+    case 'half_cauchy': {
+      const x = 2 * (t - Math.log(prior.scale)); // log(σ²/A²); log(1 + eˣ) without overflow
+      return -t - (x > 30 ? x + Math.log1p(Math.exp(-x)) : Math.log1p(Math.exp(x)));
+    }
     case 'inverse_gamma':
       return -2 * (prior.shape + 1) * t - prior.scale * Math.exp(-2 * t);
   }
@@ -291,6 +300,9 @@ export function makeLogMarginalSiteVariance(data: AreaData, priors: AreaPriors):
   checkIdentified(g, data);
   return (sigma2: number) => {
     if (!(sigma2 >= 0)) return Number.NaN;
+    // At σ² = 0 the density of σ² is infinite under the uniform and half-Cauchy priors
+    // ((σ²)^{−1/2}) and zero under the inverse-gamma.
+    if (sigma2 === 0) return g.prior.kind === 'inverse_gamma' ? -Infinity : Infinity;
     const t = 0.5 * Math.log(sigma2);
     return logIntegratedLikelihood(g, sigma2) + logPriorVariance(g.prior, t);
   };
@@ -480,7 +492,7 @@ function findMode(f: (t: number) => number, window: [number, number], g: Margina
 
 /** Distance from the mode to where the log density has dropped by ½ (≈ one sd if normal), to ±2%. */
 function halfWidth(f: (t: number) => number, mode: number, top: number, direction: 1 | -1): number {
-  let d = 1e-3;
+  let d = 1e-6;
   while (d < 2 * T_LIMIT && f(mode + direction * d) > top - 0.5) d *= 2;
   let a = d / 2;
   let b = d;
@@ -639,6 +651,8 @@ interface Mixture {
   w: Float64Array;
   mu: Float64Array;
   sd: Float64Array;
+  /** 1/sd, filled by {@link summariseMixture}. */
+  precision: Float64Array;
 }
 
 /**
@@ -647,7 +661,7 @@ interface Mixture {
  * at every step with bisection as fallback, until the step is below 1e-10 · scale.
  */
 function mixtureQuantile(q: number, start: number, scale: number, mix: Mixture): number {
-  const { count, w, mu, sd } = mix;
+  const { count, w, mu, precision } = mix;
   const tol = QUANTILE_TOLERANCE * scale;
   let lo = -Infinity;
   let hi = Infinity;
@@ -658,13 +672,13 @@ function mixtureQuantile(q: number, start: number, scale: number, mix: Mixture):
     let pdf = 0;
     let slope = 0; // derivative of the pdf
     for (let k = 0; k < count; k++) {
-      const s = sd[k];
-      const z = (x - mu[k]) / s;
+      const r = precision[k];
+      const z = (x - mu[k]) * r;
       const e = Math.exp(-0.5 * z * z);
       cdf += w[k] * normalCdfGivenExp(z, e);
-      const d = (w[k] * e) / s;
+      const d = w[k] * e * r;
       pdf += d;
-      slope -= (d * z) / s;
+      slope -= d * z * r;
     }
     pdf *= INV_SQRT_2PI;
     slope *= INV_SQRT_2PI;
@@ -675,6 +689,7 @@ function mixtureQuantile(q: number, start: number, scale: number, mix: Mixture):
     let step = diff / pdf;
     const halley = 1 - (0.5 * step * slope) / pdf;
     if (halley > 0.5 && halley < 2) step /= halley;
+    if (Math.abs(step) <= tol) return x - step;
     let next = x - step;
     if (!(next > lo && next < hi)) {
       if (Number.isFinite(lo) && Number.isFinite(hi)) next = 0.5 * (lo + hi);
@@ -699,7 +714,8 @@ function summariseMixture(
   zs: readonly number[],
   tailSecondMoment: number,
 ): ExactSummary {
-  const { count, w, mu, sd } = mix;
+  const { count, w, mu, sd, precision } = mix;
+  for (let k = 0; k < count; k++) precision[k] = 1 / sd[k];
   let mean = 0;
   for (let k = 0; k < count; k++) mean += w[k] * mu[k];
   let m2 = 0;
@@ -851,7 +867,7 @@ export function exactAreaPosterior(
   const tEnd = tAt(G - 1);
   const densityEnd = Math.exp(grid.logDensity[G - 1]) / (sum * h);
   /** ∫_T^∞ p(t) e^{2t} dt with p ∝ e^{−κ t} past the grid; Infinity when E σ² diverges. */
-  const tailSigma2 = kappa > 2 ? (densityEnd * Math.exp(2 * tEnd)) / (kappa - 2) : Infinity;
+  const tailSigma2 = kappa <= 2 ? Infinity : densityEnd > 0 ? (densityEnd * Math.exp(2 * tEnd)) / (kappa - 2) : 0;
 
   // σ_u
   let meanSigma = 0;
@@ -865,12 +881,14 @@ export function exactAreaPosterior(
   const siteSd: ExactSummary = {
     mean: meanSigma,
     sd: Number.isFinite(meanSigma2) ? Math.sqrt(Math.max(0, meanSigma2 - meanSigma * meanSigma)) : Infinity,
-    quantiles: logSigmaQuantiles((t) => f(t) - top, grid, probs).map(Math.exp),
+    quantiles: probs.length > 0 ? logSigmaQuantiles((t) => f(t) - top, grid, probs).map(Math.exp) : [],
   };
 
-  // Mixture nodes: grid points that carry mass. Far left, where σ² < 1e-14 of both every ψ_i
-  // and every x_iᵀP⁻¹x_i, all conditionals equal their σ → 0 limits to 1e-14, so those points
-  // are merged into one (this removes the long e^t tail of the uniform and half-Cauchy priors).
+  // Mixture nodes: grid points that carry mass, or whose conditional variances (which grow like
+  // σ² for sites without data and, under a flat prior, for β) make up for a small weight. Far
+  // left, where σ² < 1e-14 of every ψ_i and of every x_iᵀP⁻¹x_i (≥ ‖x_i‖²/trace P), all
+  // conditionals equal their σ → 0 limits to 1e-14, so those points are merged into one (this
+  // removes most of the long e^t tail of the uniform and half-Cauchy priors).
   let maxWeight = 0;
   for (let k = 0; k < G; k++) maxWeight = Math.max(maxWeight, weight[k]);
   const rowNorm = smallestRowNorm(data);
@@ -888,13 +906,19 @@ export function exactAreaPosterior(
     }
     const wk = weight[k] + merged;
     merged = 0;
-    if (wk > PRUNE_RELATIVE_WEIGHT * maxWeight) {
+    if (wk * Math.exp(2 * Math.max(0, tAt(k) - mode.t)) > PRUNE_RELATIVE_WEIGHT * maxWeight) {
       nodes.push(k);
       nodeWeights.push(wk);
     }
   }
   const K = nodes.length;
-  const mix: Mixture = { count: K, w: new Float64Array(K), mu: new Float64Array(K), sd: new Float64Array(K) };
+  const mix: Mixture = {
+    count: K,
+    w: new Float64Array(K),
+    mu: new Float64Array(K),
+    sd: new Float64Array(K),
+    precision: new Float64Array(K),
+  };
   const sigma2 = new Float64Array(K);
   const inverseFactors = new Float64Array(K * pp); // L⁻¹, so x_iᵀP⁻¹x_i = ‖L⁻¹x_i‖²
   const betas = new Float64Array(K * p);
@@ -926,7 +950,7 @@ export function exactAreaPosterior(
       mix.sd[a] = Math.sqrt(betaVar[a * p + j]);
     }
     let tail = 0;
-    if (g.lambda === 0) {
+    if (g.lambda === 0 && densityEnd > 0) {
       let endVar = 0;
       for (let r = j; r < p; r++) endVar += endInverse[r * p + j] ** 2;
       tail = kappa > 2 ? (densityEnd * endVar) / (kappa - 2) : Infinity;
