@@ -12,7 +12,7 @@ import { findCollinearity } from '../src/data/linalg-check.js';
 
 const here = dirname(fileURLToPath(import.meta.url));
 const dataDir = join(here, 'fixtures', 'data');
-const checksDir = '/work/shared/checks';
+const checksDir = join(here, '..', '..', 'shared', 'checks');
 
 type ModelKeys = Record<string, unknown>;
 
