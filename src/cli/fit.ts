@@ -1,3 +1,4 @@
+import { resolve } from 'node:path';
 import type { Command } from 'commander';
 import { EXIT } from '../errors.js';
 import { runFit, type FitOutcome } from '../pipeline/fit.js';
@@ -16,6 +17,10 @@ export function describeOutcome(outcome: FitOutcome): string {
   );
 }
 
+/**
+ * Fits with a progress bar. The manifest records the `fit` command that reproduces the run
+ * (for a demo too), with absolute paths so it works from any folder.
+ */
 export async function fitAndReport(configPath: string, outDir: string, threads?: number): Promise<FitOutcome> {
   const bar = progressBar('sampling');
   try {
@@ -23,7 +28,7 @@ export async function fitAndReport(configPath: string, outDir: string, threads?:
       configPath,
       outDir,
       threads,
-      command: ['shrinkwell', ...process.argv.slice(2)],
+      command: ['shrinkwell', 'fit', resolve(configPath), '--out', resolve(outDir)],
       onWarning: (w) => process.stderr.write(`shrinkwell: warning: ${w}\n`),
       onProgress: bar.update,
     });
