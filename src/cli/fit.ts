@@ -1,5 +1,5 @@
 import { resolve } from 'node:path';
-import type { Command } from 'commander';
+import { InvalidArgumentError, type Command } from 'commander';
 import { EXIT } from '../errors.js';
 import { runFit, type FitOutcome } from '../pipeline/fit.js';
 import { progressBar } from './progress.js';
@@ -44,7 +44,7 @@ export function fitCommand(program: Command): void {
     .option('-o, --out <dir>', 'run folder to write', 'shrinkwell-run')
     .option('--threads <n>', 'worker threads (default: one per chain up to the cores); results do not depend on it', (v) => {
       const n = Number(v);
-      if (!Number.isInteger(n) || n < 1) throw new Error('--threads must be a whole number ≥ 1');
+      if (!Number.isInteger(n) || n < 1) throw new InvalidArgumentError('must be a whole number ≥ 1');
       return n;
     })
     .summary('fit the model and write the run folder')

@@ -6,6 +6,7 @@
 import { Command, CommanderError } from 'commander';
 import { EXIT, UserError } from '../errors.js';
 import { VERSION } from '../version.js';
+import { compareCommand } from './compare.js';
 import { demoCommand } from './demo.js';
 import { fitCommand } from './fit.js';
 import { reportCommand } from './report.js';
@@ -25,6 +26,7 @@ function buildProgram(): Command {
   validateCommand(program);
   fitCommand(program);
   reportCommand(program);
+  compareCommand(program);
   demoCommand(program);
   return program;
 }

@@ -203,5 +203,6 @@ export function resolveSettings(config: ConfigParsed, configPath: string): Setti
       map: config.report.map && { ...config.report.map, file: resolvePath(folder, config.report.map.file) },
     }),
     benchmark: config.benchmark && { ...config.benchmark },
+    compare: config.compare && definedOnly({ ...config.compare }),
   });
 }

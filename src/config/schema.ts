@@ -406,6 +406,24 @@ const benchmark = keys({
     'and the unadjusted figures are kept.',
 );
 
+const compare = keys({
+  target: z
+    .number()
+    .refine(Number.isFinite, 'must be a finite number')
+    .optional()
+    .describe('A target value in the unit of the measure: `shrinkwell compare` reports each site\'s probability of exceeding it.'),
+  top: z
+    .number()
+    .int()
+    .min(1)
+    .default(5)
+    .describe('k for the probabilities of ranking in the top k and the bottom k. Default 5 (capped at the number of sites).'),
+  lower_is_better: z
+    .boolean()
+    .default(false)
+    .describe('Rank 1 goes to the lowest estimate instead of the highest (e.g. for a disease prevalence). Default false.'),
+}).describe('Defaults for `shrinkwell compare` (site ranks, pairwise probabilities, target); its options override them.');
+
 /** The config file, as written by the analyst. */
 export const configSchema = keys({
   title: z.string().min(1).describe('Title of the run and the report.'),
@@ -424,6 +442,7 @@ export const configSchema = keys({
     .describe('Probability of the equal-tailed credible intervals. Default 0.95.'),
   report: report.prefault({}),
   benchmark: benchmark.optional(),
+  compare: compare.optional(),
 }).describe('A shrinkwell run: the data, the model, the sampler and the publication rules.');
 
 /** The config as written (defaults not yet filled in). */

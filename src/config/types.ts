@@ -83,4 +83,6 @@ export interface Settings {
   };
   /** Make the weighted sum of site estimates equal a reliable total (draw by draw). */
   benchmark?: { total: number; weights: string; method: 'ratio' | 'difference' };
+  /** Defaults for `shrinkwell compare`. */
+  compare?: { target?: number; top: number; lower_is_better: boolean };
 }

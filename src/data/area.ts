@@ -15,7 +15,7 @@ export function formatNumber(value: number, digits = 6): string {
 }
 
 /** Site ids: present, and each one once. */
-function siteIds(table: CsvTable, column: string): string[] {
+export function siteIds(table: CsvTable, column: string): string[] {
   const ids = textColumn(table, column, 'site id (sites.id)');
   const firstRow = new Map<string, number>();
   ids.forEach((id, row) => {
@@ -32,14 +32,14 @@ function siteIds(table: CsvTable, column: string): string[] {
 }
 
 /** Labels from `sites.label`, falling back to the id where the label is blank or not configured. */
-function siteLabels(table: CsvTable, ids: readonly string[], column: string | undefined): string[] {
+export function siteLabels(table: CsvTable, ids: readonly string[], column: string | undefined): string[] {
   if (column === undefined) return [...ids];
   const labels = textColumn(table, column, 'site label (sites.label)');
   return labels.map((label, row) => (label === '' ? ids[row] : label));
 }
 
 /** Design matrix with the intercept in column 0; covariates must be known for every site. */
-function designMatrix(table: CsvTable, covariates: readonly string[]): Float64Array {
+export function designMatrix(table: CsvTable, covariates: readonly string[]): Float64Array {
   const m = table.rows;
   const p = covariates.length + 1;
   const X = new Float64Array(m * p);
@@ -197,7 +197,7 @@ function formatCombination(terms: { name: string; coefficient: number }[]): stri
  * Fails when the covariates are exactly collinear on the sites with data (the coefficients
  * would not be identified), naming the columns and the relation.
  */
-function checkCollinearity(table: CsvTable, X: Float64Array, names: readonly string[], dataRows: readonly number[]): void {
+export function checkCollinearity(table: CsvTable, X: Float64Array, names: readonly string[], dataRows: readonly number[]): void {
   const p = names.length;
   const found = findCollinearity(X, p, dataRows);
   if (found === null) return;

@@ -6,6 +6,7 @@
 import Handlebars from 'handlebars';
 import { traceDensityPlot } from './mcmc-plots.js';
 import { intervalsChart, shrinkageChart, cvChart, type ChartSite } from './charts.js';
+import { comparisonsView, type ComparisonsView } from './comparisons.js';
 import { fixed, normalQuantile, percent, significant, whole } from './format.js';
 import { estimatesMap, flagsMap, type MapSite, type SiteMap } from './map.js';
 import { PRIOR_TARGETS, describePrior, leadHtml, modelEquations, normalisePrior, summaryEquations, tex } from './maths.js';
@@ -55,6 +56,8 @@ export interface ReportContext {
   sites: SiteView[];
   charts: { intervals: Safe[]; shrinkage: Safe; cv: Safe; mapEstimates: Safe | null; mapFlags: Safe | null };
   mapNotes: string[];
+  /** The comparisons section, when the run folder has a comparisons/ folder (shrinkwell compare). */
+  comparisons: ComparisonsView | null;
   appendix: AppendixView;
 }
 
@@ -207,6 +210,7 @@ export function buildContext(run: RunFolder, opts: ContextOptions): ReportContex
     sites: run.estimates.map((s) => siteView(s, decimals)),
     charts,
     mapNotes: opts.mapNotes,
+    comparisons: comparisonsView(run),
     appendix: buildAppendix(run),
   };
 }

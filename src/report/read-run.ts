@@ -179,7 +179,8 @@ function readText(path: string): string {
   return readFileSync(path, 'utf8');
 }
 
-function readCsv(path: string, required: string[]): Cells[] {
+/** Shared with the readers of the optional run-folder files (read-audit.ts). */
+export function readCsv(path: string, required: string[]): Cells[] {
   const text = readText(path);
   let rows: string[][];
   try {
@@ -199,8 +200,8 @@ function readCsv(path: string, required: string[]): Cells[] {
   });
 }
 
-/** A number cell: blank → null; NaN / Inf spelled out are kept as non-finite numbers. */
-function numberCell(path: string, line: number, column: string, value: string): number | null {
+/** A number cell: blank → null; NaN / Inf spelled out are kept as non-finite numbers. Shared with read-audit.ts. */
+export function numberCell(path: string, line: number, column: string, value: string): number | null {
   const text = value.trim();
   if (text === '') return null;
   const lower = text.toLowerCase();
@@ -294,7 +295,8 @@ function readDiagnostics(path: string): DiagnosticRow[] {
 // ---------------------------------------------------------------------------------------------
 // JSON files
 
-function readJson(path: string): Record<string, unknown> {
+/** Shared with the readers of the optional run-folder files (read-audit.ts). */
+export function readJson(path: string): Record<string, unknown> {
   const text = readText(path);
   let value: unknown;
   try {
