@@ -1,5 +1,7 @@
 /**
- * End-to-end report tests: the area demo is fitted with the built CLI and rendered to PDF once;
+ * End-to-end report tests: the area demo (with a benchmark added, on copies of its config and
+ * sites file) is fitted with the built CLI and rendered to PDF once; the auditor's sections are
+ * checked against the run's own files;
  * a hand-made fixture run (tests/fixtures/run-area) checks the HTML snapshot, escaping, the
  * NOT CONVERGED marking and the offline guarantee with an office template that asks for URLs.
  *
@@ -22,6 +24,26 @@ afterAll(() => rmSync(work, { recursive: true, force: true }));
 const pdftotext = (pdf: string, page?: number): string =>
   execFileSync('pdftotext', [...(page ? ['-f', String(page), '-l', String(page)] : []), '-layout', pdf, '-'], { encoding: 'utf8' });
 
+/**
+ * A copy of the area demo with `benchmark:` set: the sites file gains a column `share` (each
+ * district's share of all households) and the weighted mean is benchmarked to 3.1 t/ha.
+ * Returns the copied config's path.
+ */
+function demoWithBenchmark(dir: string): string {
+  const demo = join(root, 'data-demo', 'area');
+  mkdirSync(dir, { recursive: true });
+  cpSync(join(demo, 'districts.geojson'), join(dir, 'districts.geojson'));
+  const lines = readFileSync(join(demo, 'districts.csv'), 'utf8').trimEnd().split('\n');
+  const column = lines[0].split(',').indexOf('households');
+  const households = lines.slice(1).map((line) => Number(line.split(',')[column]));
+  const all = households.reduce((a, b) => a + b, 0);
+  writeFileSync(join(dir, 'districts.csv'), [`${lines[0]},share`, ...lines.slice(1).map((line, i) => `${line},${(households[i] / all).toFixed(6)}`)].join('\n') + '\n');
+  const config = readFileSync(join(demo, 'config.yaml'), 'utf8');
+  expect(config).toMatch(/^interval: 0\.95$/m);
+  writeFileSync(join(dir, 'config.yaml'), config.replace(/^interval: 0\.95$/m, 'interval: 0.95\nbenchmark: { total: 3.1, weights: share, method: ratio }'));
+  return join(dir, 'config.yaml');
+}
+
 describe('report of the area demo (fitted with the built CLI)', () => {
   const runDir = join(work, 'demo-run');
   const outDir = join(work, 'demo-report');
@@ -31,7 +53,7 @@ describe('report of the area demo (fitted with the built CLI)', () => {
   beforeAll(async () => {
     const cli = join(root, 'dist', 'src', 'cli', 'main.js');
     if (!existsSync(cli)) throw new Error('dist/src/cli/main.js is missing: run `npm run build` first');
-    const fit = spawnSync(process.execPath, [cli, 'fit', join(root, 'data-demo', 'area', 'config.yaml'), '--out', runDir], { encoding: 'utf8' });
+    const fit = spawnSync(process.execPath, [cli, 'fit', demoWithBenchmark(join(work, 'demo-input')), '--out', runDir], { encoding: 'utf8' });
     // 0 = converged, 5 = written but not converged: either way the run folder exists.
     expect([0, 5], fit.stderr).toContain(fit.status);
     result = await renderReport(runDir, { outDir });
@@ -65,6 +87,52 @@ describe('report of the area demo (fitted with the built CLI)', () => {
     }
     expect(text).toContain(run.manifest.inputs[0].sha256.slice(0, 32));
     expect(text).toContain(String(run.summary.sampling.seed));
+  });
+
+  it('shows the auditor\'s sections with the figures of the run\'s own files', () => {
+    const flat = text.replace(/\s+/g, ' ');
+    const summary = JSON.parse(readFileSync(join(runDir, 'summary.json'), 'utf8'));
+    const html = readFileSync(result.html, 'utf8');
+    for (const heading of ['Sampler certificate', 'Model checks', 'Frequentist cross-check', 'Benchmarking']) expect(text).toContain(heading);
+
+    const certificate = summary.certificate;
+    expect(certificate.quantities).toBe(readFileSync(join(runDir, 'certificate.csv'), 'utf8').trim().split('\n').length - 1);
+    expect(flat).toContain(certificate.all_within
+      ? `All ${certificate.quantities} quantities agree with the exact posterior within Monte Carlo error`
+      : 'disagree with the exact posterior by more than Monte Carlo error allows');
+    expect(flat).toContain(`z = ${certificate.worst.z.toFixed(2)}`);
+    expect(flat).toContain(`±${certificate.bound.toFixed(2)}`);
+
+    const checks = summary.model_checks;
+    expect(flat).toContain(`the model: ${checks.overall_ppp.toFixed(2)}.`);
+    if (checks.extreme_sites.length === 0) expect(flat).toContain(`None of the ${summary.counts.sampled} sampled sites`);
+    for (const site of checks.extreme_sites) expect(html).toMatch(new RegExp(`<tr><td class="code">${site}</td>`));
+    expect(flat).toContain(`mean of the direct estimates is ${checks.mean_direct.toFixed(3)} t/ha`);
+
+    const frequentist = JSON.parse(readFileSync(join(runDir, 'frequentist.json'), 'utf8'));
+    expect(frequentist.site_variance).toBe(summary.frequentist.site_variance);
+    expect(flat).toMatch(new RegExp(`Between-site standard deviation σ ?u ${Math.sqrt(frequentist.site_variance).toPrecision(3)} `));
+    expect(flat).toMatch(new RegExp(`Between-site variance σ ?u ?2 ${frequentist.site_variance.toPrecision(3)} `));
+    expect(flat).toContain(summary.frequentist.reading.slice(0, 60));
+    expect(flat).toContain(`Intercept ${frequentist.coefficients.intercept.estimate.toPrecision(4)} `);
+
+    const benchmark = summary.benchmark;
+    expect(flat).toContain(`Total ${benchmark.total}`);
+    expect(flat).toContain(`${benchmark.adjustment.mean.toFixed(4)} (95% interval ${benchmark.adjustment.lower.toFixed(4)} – ${benchmark.adjustment.upper.toFixed(4)})`);
+    expect(text).toContain('Benchmarked');
+    // Each site row of the table: the unadjusted estimate and, beside it, the benchmarked one.
+    const benchmarked = readFileSync(join(runDir, 'benchmarked.csv'), 'utf8').trim().split('\n').slice(1).map((line) => line.split(','));
+    const run = readRunFolder(runDir);
+    expect(benchmarked).toHaveLength(run.estimates.length);
+    for (const site of run.estimates) {
+      const row = benchmarked.find((cells) => cells[0] === site.site) as string[];
+      const line = text.split('\n').find((l) => l.trimStart().startsWith(`${site.site} `)) ?? '';
+      if (site.flag === 'suppress') {
+        expect(line).not.toContain(Number(row[2]).toFixed(2));
+      } else {
+        expect(line, site.site).toMatch(new RegExp(`${site.estimate.toFixed(2)} .*${Number(row[2]).toFixed(2)} `));
+      }
+    }
   });
 
   it('has a sane page count, page numbers, and embeds every font', () => {
@@ -124,7 +192,7 @@ describe('report of the fixture run', () => {
   });
 
   it('default templates never use triple-stash output', () => {
-    const files = ['report.hbs', ...['appendix', 'cautions', 'charts', 'cover', 'maps', 'site-table', 'status'].map((p) => `partials/${p}.hbs`)];
+    const files = ['report.hbs', ...['appendix', 'audit', 'cautions', 'charts', 'cover', 'maps', 'site-table', 'status'].map((p) => `partials/${p}.hbs`)];
     for (const file of files) expect(readFileSync(join(root, 'templates', file), 'utf8'), file).not.toContain('{{{');
   });
 });

@@ -7,6 +7,7 @@ import Handlebars from 'handlebars';
 import { traceDensityPlot } from './mcmc-plots.js';
 import { intervalsChart, shrinkageChart, cvChart, type ChartSite } from './charts.js';
 import { comparisonsView, type ComparisonsView } from './comparisons.js';
+import { auditView, type AuditView } from './audit.js';
 import { fixed, normalQuantile, percent, significant, whole } from './format.js';
 import { estimatesMap, flagsMap, type MapSite, type SiteMap } from './map.js';
 import { PRIOR_TARGETS, describePrior, leadHtml, modelEquations, normalisePrior, summaryEquations, tex } from './maths.js';
@@ -58,6 +59,8 @@ export interface ReportContext {
   mapNotes: string[];
   /** The comparisons section, when the run folder has a comparisons/ folder (shrinkwell compare). */
   comparisons: ComparisonsView | null;
+  /** The auditor's checks (frequentist cross-check, sampler certificate, model checks, benchmarking); each part null when absent. */
+  audit: AuditView;
   appendix: AppendixView;
 }
 
@@ -211,6 +214,7 @@ export function buildContext(run: RunFolder, opts: ContextOptions): ReportContex
     charts,
     mapNotes: opts.mapNotes,
     comparisons: comparisonsView(run),
+    audit: auditView(run),
     appendix: buildAppendix(run),
   };
 }
