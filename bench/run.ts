@@ -130,4 +130,6 @@ if (child >= 0) {
     if (only && s.method !== only) return;
     spawnSync(process.execPath, [fileURLToPath(import.meta.url), '--scenario', String(k)], { stdio: 'inherit' });
   });
+  // Unit model: streaming ingest and fit at 100k and 1M rows (bench/unit.ts); `npm run bench -- unit` alone.
+  if (!only || only === 'unit') spawnSync(process.execPath, [fileURLToPath(new URL('./unit.js', import.meta.url))], { stdio: 'inherit' });
 }

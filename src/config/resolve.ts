@@ -126,7 +126,7 @@ export function crossFieldProblems(config: ConfigParsed): Problem[] {
 const IGNORED_BY_KIND: Readonly<Record<ModelKind, readonly string[][]>> = {
   area: [['units'], ['model', 'response'], ['model', 'cases'], ['model', 'trials'], ['model', 'population_size'], ['model', 'finite_population'], ['model', 'priors', 'unit_sd']],
   unit: [['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'design_effect'], ['model', 'cases'], ['model', 'trials']],
-  counts: [['units'], ['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'design_effect'], ['model', 'response'], ['model', 'population_size'], ['model', 'finite_population'], ['model', 'priors', 'unit_sd']],
+  counts: [['units'], ['model', 'direct'], ['model', 'variance'], ['model', 'sd'], ['model', 'sample_size'], ['model', 'variance_from'], ['model', 'response'], ['model', 'population_size'], ['model', 'finite_population'], ['model', 'priors', 'unit_sd']],
 };
 
 /** Warnings: things that run, but probably not as the analyst meant. */

@@ -234,7 +234,9 @@ const model = keys({
     .describe(
       'Area model, variance_from sd or pooled: multiplies ψ_i to allow for the survey design ' +
         '(clustering, weighting). Default 1: simple random sampling within the site. Not applied ' +
-        'to a variance read from a column, which should already include it.',
+        'to a variance read from a column, which should already include it. Counts model: the ' +
+        'likelihood uses the effective counts cases/design_effect of trials/design_effect ' +
+        '(effective sample size).',
     ),
   response: columnName('the unit-level survey variable (unit model; a column of the units file)').optional(),
   cases: columnName('the number of cases (counts model)').optional(),

@@ -31,7 +31,8 @@ export interface Settings {
   period?: string;
   measure: { name: string; unit: string; decimals: number };
   sites: { file: string; id: string; label?: string };
-  units?: { file: string; site: string };
+  /** Unit model: the units file; `aggregated` when it holds per-site statistics, not rows. */
+  units?: { file: string; site: string; aggregated?: boolean };
   model: {
     kind: ModelKind;
     direct?: string;
@@ -44,6 +45,8 @@ export interface Settings {
     cases?: string;
     trials?: string;
     population_size?: string;
+    /** Unit model: target the finite-population mean instead of the model mean. */
+    finite_population?: boolean;
     covariates: string[];
     priors: {
       coefficients: CoefficientPrior;

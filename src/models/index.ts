@@ -5,12 +5,17 @@
  */
 import type { Kernel } from '../sampler/kernel.js';
 import { areaKernel, type AreaModelSpec } from './area.js';
+import { unitKernel, type UnitModelSpec } from './unit.js';
 
-export type ModelSpec = { kind: 'area' } & AreaModelSpec;
+export type ModelSpec =
+  | ({ kind: 'area' } & AreaModelSpec)
+  | ({ kind: 'unit' } & UnitModelSpec);
 
 export function buildKernel(spec: ModelSpec): Kernel<unknown> {
   switch (spec.kind) {
     case 'area':
       return areaKernel(spec) as Kernel<unknown>;
+    case 'unit':
+      return unitKernel(spec) as Kernel<unknown>;
   }
 }

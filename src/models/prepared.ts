@@ -26,6 +26,19 @@ export interface SiteInputs {
   /** Covariate values per site (m × covariateNames.length, row-major), for the range check. */
   covariates: Float64Array;
   covariateNames: string[];
+  /** The flag's wording when a site's covariates lie outside the sampled range (default: covariates …). */
+  outsideRangeReason?: string;
+  /**
+   * Interval of the direct estimate at the run's interval level, where the model provides one
+   * (counts: the Wilson score interval, which stays inside [0, 1] and is not empty at 0 cases).
+   */
+  directInterval?: { lower: Float64Array; upper: Float64Array; method: string };
+  /**
+   * The coefficient of variation the flags use, when it is not sd / |estimate| (counts:
+   * sd / min(p, 1 − p), see src/models/counts-prepare.ts). Applied to the direct and the model
+   * estimate alike.
+   */
+  cvOf?: (estimate: number, sd: number) => number;
 }
 
 export interface PreparedFit {

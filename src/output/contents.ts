@@ -120,10 +120,17 @@ export function summaryJson(r: RunResults): string {
     model: {
       kind: settings.model.kind,
       coefficients: r.coefficientNames,
-      priors: { coefficients: settings.model.priors.coefficients, site_sd: settings.model.priors.site_sd },
+      priors: {
+        coefficients: settings.model.priors.coefficients,
+        site_sd: settings.model.priors.site_sd,
+        ...(settings.model.kind === 'unit' ? { unit_sd: settings.model.priors.unit_sd } : {}),
+      },
       prior_notes: {
         coefficients: coefficientPriorNote(settings.model.priors.coefficients),
         site_sd: scalePriorNote(settings.model.priors.site_sd, 'between-site standard deviation'),
+        ...(settings.model.kind === 'unit'
+          ? { unit_sd: scalePriorNote(settings.model.priors.unit_sd, 'within-site (unit-level) standard deviation') }
+          : {}),
       },
       variance_note: r.varianceNote,
     },

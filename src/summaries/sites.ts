@@ -36,7 +36,13 @@ export interface GateResult {
   failing: string[];
 }
 
+/**
+ * A quantity passes when R-hat < rhatMax and both ESS ≥ essMin. A quantity with no posterior
+ * spread at all (e.g. a finite-population mean of a fully sampled site) is known exactly and
+ * passes; its diagnostics are undefined (NaN), not failing.
+ */
 export function passesGate(q: QuantitySummary, rhatMax: number, essMin: number): boolean {
+  if (q.sd === 0 && Number.isFinite(q.mean)) return true;
   return q.rhat < rhatMax && q.essBulk >= essMin && q.essTail >= essMin;
 }
 
@@ -47,7 +53,8 @@ export function evaluateGate(summaries: readonly QuantitySummary[], rhatMax: num
   let lowestEssTail = { quantity: '', value: Infinity };
   const failing: string[] = [];
   for (const q of summaries) {
-    // A constant quantity (NaN diagnostics) cannot be judged; count it as failing.
+    // A quantity known exactly (no spread) has no diagnostics to report; any other NaN fails.
+    if (q.sd === 0 && Number.isFinite(q.mean)) continue;
     if (!(q.rhat <= worstRhat.value)) worstRhat = { quantity: q.name, value: q.rhat };
     if (!(q.essBulk >= lowestEssBulk.value)) lowestEssBulk = { quantity: q.name, value: q.essBulk };
     if (!(q.essTail >= lowestEssTail.value)) lowestEssTail = { quantity: q.name, value: q.essTail };
@@ -92,7 +99,7 @@ interface Finding {
 export function siteFindings(
   est: Pick<SiteEstimate, 'n' | 'cv' | 'weightDirect'>,
   rules: Settings['reliability'],
-  context: { converged: boolean; runConverged: boolean; outside: string[] },
+  context: { converged: boolean; runConverged: boolean; outside: string[]; outsideReason?: string },
 ): Finding[] {
   const findings: Finding[] = [];
   if (!context.runConverged)
@@ -113,7 +120,7 @@ export function siteFindings(
   if (context.outside.length > 0)
     findings.push({
       flag: 'caution',
-      reason: `covariates outside the range of sampled sites (${context.outside.join(', ')})`,
+      reason: `${context.outsideReason ?? 'covariates outside the range of sampled sites'} (${context.outside.join(', ')})`,
     });
   return findings;
 }
@@ -138,6 +145,7 @@ export function siteEstimates(
   gate: GateResult,
 ): SiteEstimate[] {
   const ranges = sampledRanges(sites);
+  const cvOf = sites.cvOf ?? ((estimate: number, sd: number) => sd / Math.abs(estimate));
   return sites.siteIds.map((site, i) => {
     const q = summaries.get(`site:${site}`)!;
     const sampled = sites.sampled[i] === 1;
@@ -147,18 +155,19 @@ export function siteEstimates(
       n: sites.n[i],
       direct: sampled ? sites.direct[i] : NaN,
       directSe: sampled ? sites.directSe[i] : NaN,
-      directCv: sampled ? sites.directSe[i] / Math.abs(sites.direct[i]) : NaN,
+      directCv: sampled ? cvOf(sites.direct[i], sites.directSe[i]) : NaN,
       estimate: q.mean,
       sd: q.sd,
       lower: q.lower,
       upper: q.upper,
-      cv: q.sd / Math.abs(q.mean),
+      cv: cvOf(q.mean, q.sd),
       weightDirect: sampled ? weights[i] : 0,
     };
     const findings = siteFindings(base, rules, {
       converged: passesGate(q, rules.rhat_max, rules.ess_min),
       runConverged: gate.converged,
       outside: outsideRange(sites, ranges, i),
+      outsideReason: sites.outsideRangeReason,
     });
     return { ...base, flag: worstFlag(findings), reasons: findings.map((f) => f.reason) };
   });
