@@ -132,4 +132,6 @@ if (child >= 0) {
   });
   // Unit model: streaming ingest and fit at 100k and 1M rows (bench/unit.ts); `npm run bench -- unit` alone.
   if (!only || only === 'unit') spawnSync(process.execPath, [fileURLToPath(new URL('./unit.js', import.meta.url))], { stdio: 'inherit' });
+  // Counts model: 3,000 sites, trials 5–500 (bench/counts.ts); `npm run bench -- counts` alone.
+  if (!only || only === 'counts') spawnSync(process.execPath, [fileURLToPath(new URL('./counts.js', import.meta.url))], { stdio: 'inherit' });
 }

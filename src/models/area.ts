@@ -52,8 +52,12 @@ export function areaQuantities(data: AreaData): string[] {
   ];
 }
 
-/** The sampled sites packed contiguously, so hot loops touch no unsampled rows. */
-interface Packed {
+/**
+ * The sampled sites packed contiguously, so hot loops touch no unsampled rows. Exported for the
+ * counts model (src/models/counts.ts), which refills `y` and `psi` with its Pólya–Gamma pseudo-data
+ * every sweep and then calls {@link refreshResponseTerms}.
+ */
+export interface Packed {
   p: number;
   /** Number of sampled sites, and of all sites. */
   n: number;
@@ -76,6 +80,12 @@ interface Packed {
   priorPrecisionMean: number;
   /** b0ᵀS⁻¹b0 summed over coefficients. */
   priorQuad: number;
+  /**
+   * Work of a sweep outside the σ_u update and the β, θ draws, in units of one site's share of
+   * one pass (0 for the area model; the counts model's Pólya–Gamma draws): only the warmup's
+   * choice of σ_u update uses it.
+   */
+  extraSweepCost: number;
 }
 
 function outerProductTerms(X: Float64Array, y: Float64Array, n: number, p: number): Float64Array {
@@ -92,7 +102,11 @@ function outerProductTerms(X: Float64Array, y: Float64Array, n: number, p: numbe
 }
 
 function pack(spec: AreaModelSpec): Packed {
-  const { data } = spec;
+  return packSites(spec.data, spec.coefficients);
+}
+
+/** Packs the sites with data (`hasData`) of `data`, with the prior on β, for the collapsed updates. */
+export function packSites(data: AreaData, coefficients: CoefficientPrior): Packed {
   const { p } = data;
   const index: number[] = [];
   for (let i = 0; i < data.m; i++) if (data.hasData[i]) index.push(i);
@@ -105,7 +119,7 @@ function pack(spec: AreaModelSpec): Packed {
     y[k] = data.direct[site];
     psi[k] = data.variance[site];
   });
-  const prior = spec.coefficients;
+  const prior = coefficients;
   const precision = prior.kind === 'normal' ? 1 / (prior.sd * prior.sd) : 0;
   const mean = prior.kind === 'normal' ? prior.mean : 0;
   return {
@@ -121,7 +135,23 @@ function pack(spec: AreaModelSpec): Packed {
     priorPrecision: precision,
     priorPrecisionMean: precision * mean,
     priorQuad: p * precision * mean * mean,
+    extraSweepCost: 0,
   };
+}
+
+/**
+ * Recomputes the response columns of `d.terms` (x·y and y²) after the caller has overwritten
+ * `d.y` (and `d.psi`); the x xᵀ columns do not depend on the response and are kept.
+ */
+export function refreshResponseTerms(d: Packed): void {
+  const { n, p, X, y, terms } = d;
+  const first = (p * (p + 1)) / 2;
+  for (let j = 0; j < p; j++) {
+    const base = (first + j) * n;
+    for (let k = 0; k < n; k++) terms[base + k] = X[k * p + j] * y[k];
+  }
+  const base = (first + p) * n;
+  for (let k = 0; k < n; k++) terms[base + k] = y[k] * y[k];
 }
 
 /**
@@ -305,7 +335,7 @@ function sliceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, p
 }
 
 /** β | σ, y ~ N(P⁻¹b, P⁻¹), from the factor L (P = LLᵀ) and v = L⁻¹b left in the work buffers. */
-function drawBetaFromFactor(state: CollapsedState, p: number, rng: Rng): void {
+export function drawBetaFromFactor(state: CollapsedState, p: number, rng: Rng): void {
   const { beta, work } = state;
   for (let j = 0; j < p; j++) beta[j] = work.v[j] + normal(rng);
   solveUpperTransposedInPlace(work.P, p, beta);
@@ -319,7 +349,7 @@ function linearPredictor(X: Float64Array, p: number, site: number, beta: Float64
 }
 
 /** θ_i | β, σ, y: precision-weighted for sampled sites, synthetic (prior) for the others. */
-function drawTheta(
+export function drawTheta(
   theta: Float64Array,
   data: AreaData,
   beta: Float64Array,
@@ -472,7 +502,7 @@ function tuneSigmaUpdate(
     const evaluations = t[5 + 2 * k + 1];
     if (evaluations === 0) return;
     const sweeps = t[0] / SIGMA_UPDATES.length;
-    const cost = evaluations * d.n + sweeps * (2 * d.m + SWEEP_FIXED_COST);
+    const cost = evaluations * d.n + sweeps * (2 * d.m + SWEEP_FIXED_COST + d.extraSweepCost);
     const efficiency = t[5 + 2 * k] / cost;
     if (efficiency > best) {
       best = efficiency;
@@ -482,40 +512,73 @@ function tuneSigmaUpdate(
   t.fill(0);
 }
 
+/**
+ * A collapsed-sampler state at a dispersed start (σ_u from the data's excess spread, jittered;
+ * β and θ zero until the first sweep draws them), with the marginal evaluated there.
+ */
+export function initCollapsedState(d: Packed, prior: ScalePrior, m: number, rng: Rng): CollapsedState {
+  const work = createMarginalWork(d);
+  const logSigma = startingLogSigma(d, rng);
+  const sigma = Math.exp(logSigma);
+  return {
+    sigma,
+    logTarget: logMarginalLogSigma(logSigma, d, prior, work),
+    update: 'slice-log',
+    widthLog: 1,
+    widthLinear: sigma,
+    proposalCentre: new Float64Array(2),
+    proposalSpread: new Float64Array(2),
+    beta: new Float64Array(d.p),
+    theta: new Float64Array(m),
+    work,
+    spare: createMarginalWork(d),
+    evaluations: 1,
+    tune: new Float64Array(5 + 2 * SIGMA_UPDATES.length),
+  };
+}
+
+/**
+ * Re-evaluates the marginal at the current σ_u after the packed response has changed (the counts
+ * model's pseudo-data), so the next σ_u update compares against the current target and the β draw
+ * reads the factor of the current data. Counts as one evaluation.
+ */
+export function refreshLogTarget(state: CollapsedState, d: Packed, prior: ScalePrior): void {
+  state.evaluations++;
+  state.logTarget = logMarginalLogSigma(Math.log(state.sigma), d, prior, state.work);
+}
+
+/**
+ * The collapsed sweep without the θ draw: σ_u | y by the update chosen for this sweep, then
+ * β | σ_u, y exactly, then (warmup only) the tuning. The caller draws θ | β, σ_u, y.
+ */
+export function collapsedSigmaBetaStep(
+  state: CollapsedState,
+  d: Packed,
+  prior: ScalePrior,
+  rng: Rng,
+  phase: Phase,
+  iteration: number,
+): void {
+  const update = updateForSweep(state, phase, iteration);
+  const previousSigma = state.sigma;
+  const evaluationsBefore = state.evaluations;
+  updateSigma(state, update, d, prior, rng);
+  drawBetaFromFactor(state, d.p, rng);
+  tuneSigmaUpdate(state, d, update, previousSigma, evaluationsBefore, phase, iteration);
+}
+
 export function collapsedAreaKernel(spec: AreaModelSpec): Kernel<CollapsedState> {
   const d = pack(spec);
   const { data, siteSd } = spec;
-  const { p } = data;
   return {
     quantities: areaQuantities(data),
     init(rng) {
-      const work = createMarginalWork(d);
-      const logSigma = startingLogSigma(d, rng);
-      const sigma = Math.exp(logSigma);
-      return {
-        sigma,
-        logTarget: logMarginalLogSigma(logSigma, d, siteSd, work),
-        update: 'slice-log',
-        widthLog: 1,
-        widthLinear: sigma,
-        proposalCentre: new Float64Array(2),
-        proposalSpread: new Float64Array(2),
-        beta: new Float64Array(p),
-        theta: new Float64Array(data.m),
-        work,
-        spare: createMarginalWork(d),
-        evaluations: 1,
-        tune: new Float64Array(5 + 2 * SIGMA_UPDATES.length),
-      };
+      return initCollapsedState(d, siteSd, data.m, rng);
     },
     step(state, rng, phase, iteration) {
-      const update = updateForSweep(state, phase, iteration);
-      const previousSigma = state.sigma;
-      const evaluationsBefore = state.evaluations;
-      updateSigma(state, update, d, siteSd, rng);
-      drawBetaFromFactor(state, p, rng);
+      // The tuning inside collapsedSigmaBetaStep draws nothing, so the θ draw may follow it.
+      collapsedSigmaBetaStep(state, d, siteSd, rng, phase, iteration);
       drawTheta(state.theta, data, state.beta, state.sigma * state.sigma, rng);
-      tuneSigmaUpdate(state, d, update, previousSigma, evaluationsBefore, phase, iteration);
       return state;
     },
     record(state, out, stride, offset) {

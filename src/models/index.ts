@@ -5,11 +5,13 @@
  */
 import type { Kernel } from '../sampler/kernel.js';
 import { areaKernel, type AreaModelSpec } from './area.js';
+import { countsKernel, type CountsModelSpec } from './counts.js';
 import { unitKernel, type UnitModelSpec } from './unit.js';
 
 export type ModelSpec =
   | ({ kind: 'area' } & AreaModelSpec)
-  | ({ kind: 'unit' } & UnitModelSpec);
+  | ({ kind: 'unit' } & UnitModelSpec)
+  | ({ kind: 'counts' } & CountsModelSpec);
 
 export function buildKernel(spec: ModelSpec): Kernel<unknown> {
   switch (spec.kind) {
@@ -17,5 +19,7 @@ export function buildKernel(spec: ModelSpec): Kernel<unknown> {
       return areaKernel(spec) as Kernel<unknown>;
     case 'unit':
       return unitKernel(spec) as Kernel<unknown>;
+    case 'counts':
+      return countsKernel(spec) as Kernel<unknown>;
   }
 }
