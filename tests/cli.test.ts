@@ -123,7 +123,22 @@ describe('fit writes a complete, reproducible run folder', () => {
     for (const f of ['estimates.csv', 'parameters.csv', 'diagnostics.csv'])
       expect(readFileSync(join(dir, 'b', f), 'utf8')).toBe(readFileSync(join(dir, 'a', f), 'utf8'));
     const header = readFileSync(join(dir, 'a', 'estimates.csv'), 'utf8').split('\n')[0];
-    expect(header).toBe('site,label,n,direct,direct_se,direct_cv,estimate,sd,lower,upper,cv,weight_direct,flag,reasons');
+    expect(header).toBe(
+      'site,label,n,direct,direct_se,direct_cv,direct_lower,direct_upper,estimate,sd,lower,upper,cv,weight_direct,flag,reasons',
+    );
+    // Area model: the direct interval is the normal one, direct ± z·se, z = 1.959964 at 95% (common practice).
+    const sampled = readFileSync(join(dir, 'a', 'estimates.csv'), 'utf8').split('\n').slice(1)
+      .map((line) => line.split(','))
+      .filter((cells) => cells.length >= 8 && cells[4] !== '');
+    expect(sampled.length).toBeGreaterThan(0);
+    for (const [, , , direct, se, , lower, upper] of sampled) {
+      expect(Number(lower)).toBeCloseTo(Number(direct) - 1.959963985 * Number(se), 5);
+      expect(Number(upper)).toBeCloseTo(Number(direct) + 1.959963985 * Number(se), 5);
+    }
+    const model = JSON.parse(readFileSync(join(dir, 'a', 'summary.json'), 'utf8')).model;
+    expect(model.cv_rule).toBe('sd / |estimate|');
+    expect(model.direct_interval).toMatch(/^normal interval ± z·se/);
+    expect(model.method_note).toBeUndefined();
     for (const f of ['parameters.csv', 'diagnostics.csv', 'summary.json', 'manifest.json', 'draws.json', 'draws.bin'])
       expect(existsSync(join(dir, 'a', f)), f).toBe(true);
     // A rerun replaces the run folder in place, leaving no temporary folders behind.

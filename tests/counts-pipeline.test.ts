@@ -56,6 +56,12 @@ describe('counts model through the pipeline', () => {
     expect(tiny.n).toBe('3');
     expect(tiny.direct).toBe('0');
     expect(tiny.direct_cv).toBe(''); // sd relative to a share of 0: not defined
+    // The direct interval is Wilson's (1927, JASA 22, 209–212) score interval: at 0 cases of n it is
+    // [0, z²/(n + z²)] (the formula with p̂ = 0), here n = 3, z = 1.959964 (95%), not the empty 0 ± 0.
+    const z = 1.959963985;
+    expect(tiny.direct_lower).toBe('0');
+    expect(Number(tiny.direct_upper)).toBeCloseTo((z * z) / (3 + z * z), 6);
+    for (const u of unsampled) expect([u.direct_lower, u.direct_upper]).toEqual(['', '']);
     expect(tiny.reasons).toContain('small sample (n = 3');
     expect(Number(tiny.estimate)).toBeGreaterThan(0.1); // pulled far from 0 of 3
     expect(Number(tiny.weight_direct)).toBeLessThan(0.2);
@@ -66,7 +72,12 @@ describe('counts model through the pipeline', () => {
     const summary = JSON.parse(readFileSync(join(outcome.runDir, 'summary.json'), 'utf8'));
     expect(summary.model.kind).toBe('counts');
     expect(summary.model.variance_note).toContain('Wilson');
-    expect(summary.model.variance_note).toContain('min(p, 1 − p)');
+    expect(summary.model.direct_interval).toMatch(/^Wilson score interval \(Wilson 1927\)/);
+    expect(summary.model.cv_rule).toMatch(/^sd \/ min\(p, 1 − p\)/);
+    expect(summary.model.method_note).toContain('Pólya–Gamma');
+    // The notes have their own keys: the variance note keeps only how the direct figures were formed.
+    expect(summary.model.variance_note).not.toContain('min(p, 1 − p)');
+    expect(summary.model.variance_note).not.toContain('Pólya');
     const parameters = readFileSync(join(outcome.runDir, 'parameters.csv'), 'utf8');
     expect(parameters).toContain('coef:water');
     expect(parameters).toContain('site_sd');

@@ -7,6 +7,7 @@ import { UserError } from '../errors.js';
 import { normalQuantile } from '../diagnostics/normal-quantile.js';
 import { PG_REAL_METHOD_NOTE } from '../sampler/polya-gamma-real.js';
 import { exactCountsPosterior } from '../summaries/exact-counts.js';
+import { checkCounts, countsModelChecks } from '../summaries/model-checks-counts.js';
 import { countsQuantities } from './counts.js';
 import type { PreparedFit, SiteInputs } from './prepared.js';
 
@@ -108,7 +109,10 @@ export function countsWeights(data: CountsData, siteDraws: (site: number) => Flo
   return weights;
 }
 
-/** How the counts were used, for the appendix (shown where the area model states its ψ_i). */
+/**
+ * How the direct figures were formed from the counts, for the appendix (shown where the area
+ * model states its ψ_i). The interval, CV rule and sampler have their own notes below.
+ */
 export function countsNote(data: CountsData, interval: number): string {
   const deff = data.designEffect;
   const percent = `${formatNumber(100 * interval)}%`;
@@ -119,17 +123,28 @@ export function countsNote(data: CountsData, interval: number): string {
       : `Design effect ${formatNumber(deff)}: the likelihood uses the effective counts y_i/${formatNumber(deff)} and n_i/${formatNumber(deff)} ` +
         '(effective sample size, Korn & Graubard 1998), and the direct standard error is multiplied by its square root.',
     `Direct estimate: the share y_i/n_i; its standard error the binomial √(p̂(1 − p̂)/n_i)${deff === 1 ? '' : ' × √deff'}, ` +
-      `which is 0 at 0 or all cases, so the ${percent} interval of a direct share is the Wilson (1927) score interval` +
-      `${deff === 1 ? '' : ' with the effective sample size'}, which is not empty there and stays inside [0, 1].`,
-    'Reliability: the CV of a share is its sd divided by the smaller of the share and its complement, sd / min(p, 1 − p), ' +
-      'so that a share near 0 and one near 1 are judged alike (the plain sd/p is huge near 0 and tiny near 1).',
-    'Weight on own data: the posterior mean of ñ_i p_i(1 − p_i)σ_u² / (1 + ñ_i p_i(1 − p_i)σ_u²), the shrinkage weight ' +
-      'of the logit with the binomial information ñ_i p_i(1 − p_i).',
-    `Sampler: Pólya–Gamma augmentation (Polson, Scott & Windle 2013) turns each site into a Gaussian observation of the logit; ` +
-      `σ_u is then drawn with β and the logits integrated out. ${PG_REAL_METHOD_NOTE}`,
+      `which is 0 at 0 or all cases, so the ${percent} interval of a direct share is the Wilson score interval instead.`,
   ];
   return parts.join(' ');
 }
+
+/** The direct interval in words (summary.json model.direct_interval). */
+export function countsDirectIntervalNote(data: CountsData): string {
+  return data.designEffect === 1
+    ? 'Wilson score interval (Wilson 1927): stays inside [0, 1] and is not empty at 0 or all cases'
+    : `Wilson score interval (Wilson 1927) with the effective sample size n_i/${formatNumber(data.designEffect)}: ` +
+        'stays inside [0, 1] and is not empty at 0 or all cases';
+}
+
+/** The CV rule of shares in words (summary.json model.cv_rule); see `shareCv`. */
+export const COUNTS_CV_RULE =
+  'sd / min(p, 1 − p): the sd over the smaller of the share and its complement, so that a share near 0 and one ' +
+  'near 1 are judged alike (this project\'s rule; the plain sd/p is huge near 0 and tiny near 1)';
+
+/** The sampler in words (summary.json model.method_note). */
+export const COUNTS_METHOD_NOTE =
+  'Pólya–Gamma augmentation (Polson, Scott & Windle 2013) turns each site into a Gaussian observation of the logit; ' +
+  `σ_u is then drawn with β and the logits integrated out. ${PG_REAL_METHOD_NOTE}`;
 
 /** Largest number of sites for which an intercept-only fit gets the exact certificate (seconds of quadrature). */
 const EXACT_MAX_SITES = 40;
@@ -170,7 +185,23 @@ export function prepareCounts(settings: Settings, data: CountsData, files: FileF
     sites: countsSiteInputs(data, settings.interval),
     files,
     varianceNote: countsNote(data, settings.interval),
+    directIntervalNote: countsDirectIntervalNote(data),
+    cvRule: COUNTS_CV_RULE,
+    methodNote: COUNTS_METHOD_NOTE,
     weightDirect: (pooled) => countsWeights(data, (i) => pooled(`site:${data.siteIds[i]}`), pooled('site_sd')),
     exactMeans: data.p === 1 && data.m <= EXACT_MAX_SITES ? () => countsExactMeans(settings, data) : undefined,
+    modelChecks: (pooled, estimates, rng) => {
+      // Replicates use the counts the likelihood uses: the effective counts, rounded (see checkCounts).
+      const { cases, trials } = checkCounts(data.effectiveCases, data.effectiveTrials, data.hasData);
+      const direct = Float64Array.from(data.trials, (n, i) => (data.hasData[i] ? data.cases[i] / n : Number.NaN));
+      return countsModelChecks(
+        { siteIds: data.siteIds, cases, trials, direct, X: data.X, p: data.p },
+        (i) => pooled(`site:${data.siteIds[i]}`),
+        data.coefficientNames.map((name) => pooled(`coef:${name}`)),
+        pooled('site_sd'),
+        estimates,
+        rng,
+      );
+    },
   };
 }

@@ -48,8 +48,14 @@ export interface PreparedFit {
   coefficientNames: string[];
   sites: SiteInputs;
   files: FileFingerprint[];
-  /** How the sampling variances were obtained, in words for the appendix (area model). */
+  /** How the sampling variances (or the direct figures) were obtained, in words for the appendix. */
   varianceNote: string;
+  /** The interval of the direct estimate in words (summary.json model.direct_interval); default: the normal interval ± z·se. */
+  directIntervalNote?: string;
+  /** The CV rule in words (summary.json model.cv_rule); default: sd / |estimate|. */
+  cvRule?: string;
+  /** How the sampler draws this model, where more needs saying than the method's name (summary.json model.method_note). */
+  methodNote?: string;
   /**
    * Posterior mean per site of the weight on the site's own data (1 − shrinkage), from the
    * pooled draws of the named parameters; 0 for unsampled sites.

@@ -6,6 +6,9 @@ import type { UnitData } from '../data/unit-data.js';
 import type { FileFingerprint } from '../data/types.js';
 import { UserError } from '../errors.js';
 import { exactUnitPosterior } from '../summaries/exact-unit.js';
+import { unitModelChecks } from '../summaries/model-checks-unit.js';
+import type { Rng } from '../sampler/rng.js';
+import { normal } from '../sampler/variates.js';
 import type { PreparedFit, SiteInputs } from './prepared.js';
 import { unitQuantities } from './unit.js';
 
@@ -100,6 +103,45 @@ export function unitExactMeans(settings: Settings, data: UnitData): Map<string, 
   return means;
 }
 
+/**
+ * Draws of x̄_iᵀβ + u_i, the model's mean of site i's sample mean, for the model checks (sampled
+ * sites). The kernel records the target μ_i, not u_i. For the population-mean target
+ * μ_i = X̄_iᵀβ + u_i, so x̄_iᵀβ + u_i = μ_i + (x̄_i − X̄_i)ᵀβ exactly, draw by draw. For the
+ * finite-population target μ_i also holds the draw of the non-sampled units' mean error, so u_i
+ * is drawn afresh from its full conditional u_i | β, σ_u, σ_e, y ~ N(γ_i(ȳ_i − x̄_iᵀβ), γ_i σ_e²/n_i),
+ * γ_i = σ_u²/(σ_u² + σ_e²/n_i) (Battese, Harter & Fuller 1988; step 4 of src/models/unit.ts), which
+ * with the recorded (β, σ_u, σ_e) is a draw from the joint posterior.
+ */
+export function unitSampleMeanDraws(data: UnitData, pooled: (quantity: string) => Float64Array, rng: Rng): (site: number) => Float64Array {
+  const { p } = data;
+  const beta = data.coefficientNames.map((name) => pooled(`coef:${name}`));
+  const siteSd = pooled('site_sd');
+  const unitSd = pooled('unit_sd');
+  const S = siteSd.length;
+  return (i) => {
+    const out = new Float64Array(S);
+    const n = data.n[i];
+    if (!data.finitePopulation) {
+      const mu = pooled(`site:${data.siteIds[i]}`);
+      for (let k = 0; k < S; k++) {
+        let shift = 0;
+        for (let j = 0; j < p; j++) shift += (data.xbar[i * p + j] - data.populationMeans[i * p + j]) * beta[j][k];
+        out[k] = mu[k] + shift;
+      }
+      return out;
+    }
+    for (let k = 0; k < S; k++) {
+      let eta = 0;
+      for (let j = 0; j < p; j++) eta += data.xbar[i * p + j] * beta[j][k];
+      const s2 = siteSd[k] * siteSd[k];
+      const noise = (unitSd[k] * unitSd[k]) / n;
+      const gamma = s2 / (s2 + noise);
+      out[k] = eta + gamma * (data.ybar[i] - eta) + Math.sqrt(gamma * noise) * normal(rng);
+    }
+    return out;
+  };
+}
+
 export function prepareUnit(settings: Settings, data: UnitData, files: FileFingerprint[]): PreparedFit {
   if (settings.sampling.method === 'plain') {
     throw new UserError('config', `${settings.config_path}: sampling.method: plain is available for the area model only; the unit model always uses the collapsed sampler (remove sampling.method)`);
@@ -121,5 +163,15 @@ export function prepareUnit(settings: Settings, data: UnitData, files: FileFinge
     weightDirect: (pooled) => unitWeights(data, pooled('site_sd'), pooled('unit_sd')),
     exactMeans: () => unitExactMeans(settings, data),
     frequentist: () => unitEblup(data),
+    modelChecks: (pooled, estimates, rng) =>
+      unitModelChecks(
+        { siteIds: data.siteIds, n: data.n, ybar: data.ybar, xbar: data.xbar, p: data.p },
+        unitSampleMeanDraws(data, pooled, rng),
+        data.coefficientNames.map((name) => pooled(`coef:${name}`)),
+        pooled('site_sd'),
+        pooled('unit_sd'),
+        estimates,
+        rng,
+      ),
   };
 }

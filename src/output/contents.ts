@@ -16,16 +16,16 @@ export const RUN_FORMAT = 'shrinkwell-run';
 export const RUN_FORMAT_VERSION = 1;
 
 export const ESTIMATE_COLUMNS = [
-  'site', 'label', 'n', 'direct', 'direct_se', 'direct_cv', 'estimate', 'sd', 'lower', 'upper',
-  'cv', 'weight_direct', 'flag', 'reasons',
+  'site', 'label', 'n', 'direct', 'direct_se', 'direct_cv', 'direct_lower', 'direct_upper', 'estimate', 'sd',
+  'lower', 'upper', 'cv', 'weight_direct', 'flag', 'reasons',
 ] as const;
 
 export function estimatesCsv(sites: readonly SiteEstimate[]): string {
   return csvText(
     ESTIMATE_COLUMNS,
     sites.map((s) => [
-      s.site, s.label, s.n, s.direct, s.directSe, s.directCv, s.estimate, s.sd, s.lower, s.upper,
-      s.cv, s.weightDirect, s.flag, s.reasons.join('; '),
+      s.site, s.label, s.n, s.direct, s.directSe, s.directCv, s.directLower, s.directUpper, s.estimate, s.sd,
+      s.lower, s.upper, s.cv, s.weightDirect, s.flag, s.reasons.join('; '),
     ]),
   );
 }
@@ -94,6 +94,31 @@ export function modelChecksCsv(c: ModelChecks): string {
   );
 }
 
+/** How the direct interval and the CV are formed unless the model says otherwise (area, unit). */
+export const DEFAULT_DIRECT_INTERVAL = 'normal interval ± z·se (direct ± z·direct_se at the interval level)';
+export const DEFAULT_CV_RULE = 'sd / |estimate|';
+
+/** summary.json `model_checks.note`: what was checked for this model kind. */
+export function modelChecksNote(kind: string, extremeLevel: number): string {
+  const checks =
+    kind === 'unit'
+      ? 'Posterior predictive p-value of each site\'s sample mean, P(ȳ_rep ≥ ȳ | data) with ȳ_rep ~ N(x̄β + u, σ_e²/n), ' +
+        'and of the discrepancy Σ n(ȳ − x̄β − u)²/σ_e² overall (Gelman, Meng & Stern 1996); ' +
+        'standardized residuals (ȳ − x̄β)/√(σ_u² + σ_e²/n), x̄ the sample means of the covariates. '
+      : kind === 'counts'
+        ? 'Posterior predictive mid-p value of each site\'s cases, P(y_rep > y | data) + ½ P(y_rep = y | data) with ' +
+          'y_rep ~ Binomial(n, p), and of the discrepancy Σ (y − np)²/(np(1 − p)) overall (Gelman, Meng & Stern 1996); ' +
+          'standardized residuals (y/n − p̄)/√(p̄(1 − p̄)/n + (1 − 1/n)v), p̄ and v the mean and variance of ' +
+          'expit(xβ + u), u ~ N(0, σ_u²). Under a design effect the effective counts y/deff and n/deff, rounded to whole numbers, are used. '
+        : 'Posterior predictive p-value of each direct estimate, P(y_rep ≥ y | data), and of the discrepancy ' +
+          'Σ (y − θ)²/ψ overall (Gelman, Meng & Stern 1996); standardized residuals (y − xβ)/√(ψ + σ_u²). ';
+  return (
+    checks +
+    `Sites whose p-value lies in the outer ${100 * extremeLevel}% are listed as extreme ` +
+    '(about that share of sites is expected by chance).'
+  );
+}
+
 export interface RunResults {
   checks?: ModelChecks | null;
   certificate?: Certificate | null;
@@ -102,6 +127,10 @@ export interface RunResults {
   settings: Settings;
   coefficientNames: string[];
   varianceNote: string;
+  /** The direct-estimate interval, the CV rule and the sampler note in words (defaults: area and unit models). */
+  directIntervalNote?: string;
+  cvRule?: string;
+  methodNote?: string;
   summaries: QuantitySummary[];
   sites: SiteEstimate[];
   gate: GateResult;
@@ -133,6 +162,9 @@ export function summaryJson(r: RunResults): string {
           : {}),
       },
       variance_note: r.varianceNote,
+      direct_interval: r.directIntervalNote ?? DEFAULT_DIRECT_INTERVAL,
+      cv_rule: r.cvRule ?? DEFAULT_CV_RULE,
+      ...(r.methodNote ? { method_note: r.methodNote } : {}),
     },
     interval: settings.interval,
     sampling: {
@@ -166,11 +198,7 @@ export function summaryJson(r: RunResults): string {
       : null,
     model_checks: r.checks
       ? {
-          note:
-            'Posterior predictive p-value of each direct estimate, P(y_rep ≥ y | data), and of the discrepancy ' +
-            'Σ (y − θ)²/ψ overall (Gelman, Meng & Stern 1996); standardized residuals (y − xβ)/√(ψ + σ_u²). ' +
-            `Sites whose p-value lies in the outer ${100 * r.checks.extremeLevel}% are listed as extreme ` +
-            '(about that share of sites is expected by chance).',
+          note: modelChecksNote(settings.model.kind, r.checks.extremeLevel),
           overall_ppp: r.checks.overallPpp,
           extreme_level: r.checks.extremeLevel,
           extreme_sites: r.checks.sites.filter((s) => s.extreme).map((s) => s.site),

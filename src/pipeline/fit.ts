@@ -157,7 +157,7 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   const byName = new Map(summaries.map((s) => [s.name, s]));
   const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
   const weights = prepared.weightDirect((quantity) => pooledDraws(chains, names.indexOf(quantity)));
-  const sites = siteEstimates(prepared.sites, byName, weights, settings.reliability, gate);
+  const sites = siteEstimates(prepared.sites, byName, weights, settings.reliability, gate, settings.interval);
   const benchmark = benchmarkWeights && settings.benchmark
     ? benchmarkDraws(
         chains,
@@ -218,6 +218,9 @@ function runFolderFiles(
         settings,
         coefficientNames: prepared.coefficientNames,
         varianceNote: prepared.varianceNote,
+        directIntervalNote: prepared.directIntervalNote,
+        cvRule: prepared.cvRule,
+        methodNote: prepared.methodNote,
         summaries: r.summaries,
         sites: r.sites,
         gate: r.gate,

@@ -61,6 +61,7 @@ export interface CertificateView {
 }
 
 export interface ModelChecksView {
+  words: ModelChecksWords;
   note: string | null;
   overallPpp: string | null;
   reading: string | null;
@@ -300,26 +301,72 @@ function certificateView(run: RunFolder, data: AuditFiles['certificate']): Certi
 /** Band of the overall p-value read as "no sign of misfit" (common practice: outside 0.05–0.95 is a warning). */
 export const PPP_BAND: readonly [number, number] = [0.05, 0.95];
 
-/** A plain reading of the overall posterior predictive p-value of Σ (y − θ)²/ψ. */
-export function pppReading(p: number): { text: string; misfit: boolean } {
-  if (p < PPP_BAND[0]) {
+/** How the model checks name the survey figure and its sampling error, per model kind. */
+export interface ModelChecksWords {
+  /** The survey figure of one site ("direct estimate"), and in the plural. */
+  direct: string;
+  directs: string;
+  /** The same in the "… is higher than the model expects" sentence and the table heading. */
+  survey: string;
+  surveyHeading: string;
+  /** What the predictive distribution would produce ("survey means"). */
+  surveys: string;
+  /** What sets each site's predictive spread. */
+  spread: string;
+}
+
+/** Wording of the model-checks section for each model kind (the area wording is the default). */
+export function modelChecksWords(kind: string): ModelChecksWords {
+  if (kind === 'counts') {
     return {
-      misfit: true,
-      text: `The direct estimates lie further from the model than their sampling variances allow. ` +
-        'A covariate may be missing, some sampling variances may be understated, or some sites may not follow the model; ' +
-        'see the sites listed below and the quantile plot.',
-    };
-  }
-  if (p > PPP_BAND[1]) {
-    return {
-      misfit: true,
-      text: `The direct estimates lie closer to the model than their sampling variances imply, ` +
-        'which suggests the sampling variances are overstated (for instance a design effect set too high).',
+      direct: 'survey share', directs: 'survey shares', survey: 'survey share', surveyHeading: 'Survey share is',
+      surveys: 'case counts', spread: 'each site’s number of trials (binomial sampling)',
     };
   }
   return {
+    direct: 'direct estimate', directs: 'direct estimates', survey: 'survey mean', surveyHeading: 'Survey mean is',
+    surveys: 'survey means', spread: kind === 'unit' ? 'each site’s sample size (sampling variance σ_e²/n_i)' : 'each site’s sampling variance',
+  };
+}
+
+/**
+ * A plain reading of the overall posterior predictive p-value of the discrepancy: Σ (y − θ)²/ψ
+ * (area), Σ n(ȳ − x̄β − u)²/σ_e² (unit), Σ (y − np)²/(np(1 − p)) (counts).
+ */
+export function pppReading(p: number, kind = 'area'): { text: string; misfit: boolean } {
+  if (p < PPP_BAND[0]) {
+    const text =
+      kind === 'counts'
+        ? 'The survey shares lie further from the model than binomial sampling allows. ' +
+          'A covariate may be missing, the design effect may be set too low (or not set for a clustered survey), or some sites may not follow the model; ' +
+          'see the sites listed below and the quantile plot.'
+        : kind === 'unit'
+          ? 'The site sample means lie further from the model than their sampling variances σ_e²/n_i allow. ' +
+            'A covariate may be missing, the units within a site may be clustered (so σ_e²/n_i understates the sampling variance), or some sites may not follow the model; ' +
+            'see the sites listed below and the quantile plot.'
+          : `The direct estimates lie further from the model than their sampling variances allow. ` +
+            'A covariate may be missing, some sampling variances may be understated, or some sites may not follow the model; ' +
+            'see the sites listed below and the quantile plot.';
+    return { misfit: true, text };
+  }
+  if (p > PPP_BAND[1]) {
+    const text =
+      kind === 'counts'
+        ? 'The survey shares lie closer to the model than binomial sampling implies, which suggests the design effect is set too high.'
+        : kind === 'unit'
+          ? 'The site sample means lie closer to the model than their sampling variances σ_e²/n_i imply, ' +
+            'which can happen when the units were sampled in strata within each site.'
+          : `The direct estimates lie closer to the model than their sampling variances imply, ` +
+            'which suggests the sampling variances are overstated (for instance a design effect set too high).';
+    return { misfit: true, text };
+  }
+  const basis =
+    kind === 'counts'
+      ? 'The spread of the survey shares around the model is in line with binomial sampling, '
+      : `The spread of the direct estimates around the model is in line with their sampling variances, `;
+  return {
     misfit: false,
-    text: `The spread of the direct estimates around the model is in line with their sampling variances, ` +
+    text: basis +
       'so this check shows no sign of misfit. (Values near 0 or 1 would; the check is known to be conservative, ' +
       'so the site-level checks below say more.)',
   };
@@ -357,7 +404,8 @@ function modelChecksView(run: RunFolder, data: AuditFiles['modelChecks']): Model
     });
 
   const ppp = summary?.overall_ppp ?? null;
-  const reading = finite(ppp) ? pppReading(ppp) : null;
+  const kind = run.summary.model.kind;
+  const reading = finite(ppp) ? pppReading(ppp, kind) : null;
   const meanDirect = summary?.mean_direct ?? null;
   const meanModel = summary?.mean_model ?? null;
   const withUnit = (v: string) => (unit ? `${v} ${unit}` : v);
@@ -366,6 +414,7 @@ function modelChecksView(run: RunFolder, data: AuditFiles['modelChecks']): Model
     .map((r) => ({ id: r.site, residual: r.std_residual as number, extreme: r.extreme === true, suppressed: sites.get(r.site)?.flag === 'suppress' }));
 
   return {
+    words: modelChecksWords(kind),
     note: summary?.note ?? null,
     overallPpp: finite(ppp) ? fixed(ppp, 2) : null,
     reading: reading?.text ?? null,

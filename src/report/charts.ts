@@ -14,7 +14,7 @@ export interface ChartSite {
   label: string;
   n: number;
   direct: number | null;
-  /** Survey interval at the report's level: direct ± z·se. */
+  /** Survey interval at the report's level: direct ± z·se, or the run's own (counts: Wilson). */
   directLower: number | null;
   directUpper: number | null;
   directCv: number | null;
@@ -54,7 +54,7 @@ export const SITES_PER_PANEL = 45;
  * (a) Survey interval and model interval for every site, sorted by the model estimate; split into
  * panels of at most `SITES_PER_PANEL` sites that share one value axis.
  */
-export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: string; prefix?: string }): string[] {
+export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: string; prefix?: string; survey?: string }): string[] {
   const sorted = [...sites].sort((a, b) => a.estimate - b.estimate || (a.id < b.id ? -1 : 1));
   const domain = extent(finite(sorted.flatMap((s) => [s.lower, s.upper, s.directLower, s.directUpper])));
   const left = 168;
@@ -95,7 +95,7 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
     });
     body += legendItem(12, 12,
       el('line', { x1: -6, x2: 8, y1: 0, y2: 0, stroke: PALETTE.surveyBar, 'stroke-width': 4 }) + el('circle', { cx: 1, cy: 0, r: 2.6, fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1.2 }),
-      'Survey mean and its interval');
+      `${opts.survey ?? 'Survey mean'} and its interval`);
     body += legendItem(200, 12,
       el('line', { x1: -6, x2: 8, y1: 0, y2: 0, stroke: PALETTE.model, 'stroke-width': 1.4 }) + el('circle', { cx: 1, cy: 0, r: 2.4, fill: PALETTE.model }),
       'Model estimate and its credible interval');
@@ -111,7 +111,7 @@ export function intervalsChart(sites: ChartSite[], opts: { unit: string; level: 
  * (b) Shrinkage plot: each sampled site's survey mean (top axis) joined to its model estimate
  * (bottom axis); the line's darkness is the weight on the site's own data.
  */
-export function shrinkageChart(sites: ChartSite[], opts: { unit: string; prefix?: string }): string {
+export function shrinkageChart(sites: ChartSite[], opts: { unit: string; prefix?: string; survey?: string }): string {
   const height = 250;
   const left = 20;
   const right = 20;
@@ -120,7 +120,7 @@ export function shrinkageChart(sites: ChartSite[], opts: { unit: string; prefix?
   const domain = extent(finite(sites.flatMap((s) => [s.direct, s.estimate])));
   const x = scaleLinear().domain(domain).nice().range([left + 90, WIDTH - right]);
   const weightClass = scaleQuantize<string>().domain([0, 1]).range([...PALETTE.weightRamp]);
-  let body = text(left, topY + 4, 'Survey mean', { class: 'axis-label' });
+  let body = text(left, topY + 4, opts.survey ?? 'Survey mean', { class: 'axis-label' });
   body += text(left, bottomY + 4, 'Model estimate', { class: 'axis-label' });
   body += el('line', { x1: x.range()[0], x2: x.range()[1], y1: topY, y2: topY, stroke: PALETTE.axis, 'stroke-width': 0.8 });
   body += axisBottom(x, { at: bottomY, label: opts.unit, labelOffset: 30 });
@@ -149,14 +149,14 @@ export function shrinkageChart(sites: ChartSite[], opts: { unit: string; prefix?
   legend += legendItem(356, -3, el('line', { x1: -6, x2: 8, y1: 0, y2: 0, stroke: PALETTE.weightRamp[3], 'stroke-width': 1.3, 'stroke-dasharray': '3 2' }), 'suppressed');
   legend += legendItem(440, -3, el('path', { d: symbolPath(symbolTriangle, 30), fill: 'none', stroke: PALETTE.model, 'stroke-width': 1 }), 'no sample: model only (synthetic)');
   body += el('g', { transform: `translate(${left} 18)` }, legend);
-  return svgRoot(WIDTH, height, 'Shrinkage from survey mean to model estimate', body);
+  return svgRoot(WIDTH, height, `Shrinkage from ${(opts.survey ?? 'Survey mean').toLowerCase()} to model estimate`, body);
 }
 
 /**
  * (c) Coefficient of variation against sample size: survey CV (open) and model CV (filled) per
  * site, with the caution and suppression thresholds drawn as lines.
  */
-export function cvChart(sites: ChartSite[], opts: { cvCaution: number; cvSuppress: number; prefix?: string }): string {
+export function cvChart(sites: ChartSite[], opts: { cvCaution: number; cvSuppress: number; prefix?: string; survey?: string }): string {
   const height = 280;
   const left = 56;
   const right = 130;
@@ -200,11 +200,11 @@ export function cvChart(sites: ChartSite[], opts: { cvCaution: number; cvSuppres
         : el('circle', { cx, cy: clampY(site.cv), r: 2.4, fill: PALETTE.model });
     }
   }
-  let legend = legendItem(0, 0, el('circle', { cx: 0, cy: 0, r: 2.7, fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1.1 }), 'Survey mean');
+  let legend = legendItem(0, 0, el('circle', { cx: 0, cy: 0, r: 2.7, fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1.1 }), opts.survey ?? 'Survey mean');
   legend += legendItem(96, 0, el('circle', { cx: 0, cy: 0, r: 2.4, fill: PALETTE.model }), 'Model estimate');
   legend += legendItem(206, 0, el('path', { d: symbolPath(symbolCross, 30), transform: 'rotate(45)', fill: PALETTE.model }), 'Model estimate, suppressed');
-  legend += legendItem(360, 0, el('path', { d: symbolPath(symbolTriangle, 34), fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1 }), `Survey mean, CV above ${Math.round(yMax * 100)}%`);
+  legend += legendItem(360, 0, el('path', { d: symbolPath(symbolTriangle, 34), fill: '#fff', stroke: PALETTE.survey, 'stroke-width': 1 }), `${opts.survey ?? 'Survey mean'}, CV above ${Math.round(yMax * 100)}%`);
   body += el('g', { transform: `translate(${left + 10} 12)` }, legend);
-  return svgRoot(WIDTH, height, 'Coefficient of variation of survey means and model estimates', body);
+  return svgRoot(WIDTH, height, `Coefficient of variation of ${(opts.survey ?? 'Survey mean').toLowerCase()}s and model estimates`, body);
 }
 

@@ -24,7 +24,8 @@ export interface SiteView {
   n: number;
   synthetic: boolean;
   suppressed: boolean;
-  survey: { mean: string; se: string; cv: string } | null;
+  /** The direct figure; `interval` is set for shares (shown instead of ± se), null otherwise. */
+  survey: { mean: string; se: string; cv: string; interval: string | null } | null;
   estimate: string | null;
   interval: string | null;
   cv: string;
@@ -34,11 +35,57 @@ export interface SiteView {
   reasons: string[];
 }
 
+/**
+ * Words that depend on what the direct figure is: a mean (area and unit models) or a share of
+ * cases (counts). Mean wording reproduces the report's original text exactly.
+ */
+export interface Wording {
+  share: boolean;
+  /** "Survey mean" or "Survey share", and the lower-case and plural forms. */
+  survey: string;
+  surveyLower: string;
+  surveyPlural: string;
+  surveyLowerPlural: string;
+  /** How the survey interval in the intervals chart is formed. */
+  surveyIntervalHow: string;
+  /** The guide's sentences on the survey figure and on the CV. */
+  surveyGuide: string;
+  cvGuide: string;
+}
+
+export function wording(kind: string, intervalPercent: string): Wording {
+  if (kind === 'counts') {
+    return {
+      share: true,
+      survey: 'Survey share',
+      surveyLower: 'survey share',
+      surveyPlural: 'Survey shares',
+      surveyLowerPlural: 'survey shares',
+      surveyIntervalHow: 'the Wilson score interval of the share, which stays between 0 and 1 and is not empty at 0 cases',
+      surveyGuide: 'is the share of sampled units in a site that have the condition (cases out of those sampled). Where few units were sampled it is noisy.',
+      cvGuide:
+        'is the estimate’s standard deviation as a share of the estimate, or of its complement (1 − estimate) when that is smaller, ' +
+        'so that shares near 0 and near 1 are judged alike; smaller is more reliable.',
+    };
+  }
+  return {
+    share: false,
+    survey: 'Survey mean',
+    surveyLower: 'survey mean',
+    surveyPlural: 'Survey means',
+    surveyLowerPlural: 'survey means',
+    surveyIntervalHow: `survey mean ± ${intervalPercent} normal quantile × se`,
+    surveyGuide: 'is the plain average of the sampled units in a site. Where few units were sampled it is noisy.',
+    cvGuide: 'is the estimate’s standard deviation as a share of the estimate; smaller is more reliable.',
+  };
+}
+
 export interface ReportContext {
   paper: 'A4' | 'Letter';
   title: string;
   period: string | null;
   measure: { name: string; unit: string; decimals: number };
+  wording: Wording;
   converged: boolean;
   status: {
     rhatMax: string;
@@ -70,6 +117,11 @@ export interface AppendixView {
   summaryEquations: Array<{ lead: Safe; html: Safe }>;
   priors: Array<{ name: string; symbol: Safe; prior: Safe; values: string; note: string | null }>;
   varianceNote: string | null;
+  /** "Sampling variances" (area, unit) or "Direct estimates" (counts). */
+  varianceHeading: string;
+  directInterval: string | null;
+  cvRule: string | null;
+  methodNote: string | null;
   config: { path: string | null; sha256: string | null };
   inputs: Array<{ role: string; path: string; rows: string; sha256: string }>;
   coefficients: Array<{ quantity: string; name: string; estimate: string; sd: string; lower: string; upper: string }>;
@@ -98,16 +150,19 @@ const METHOD_NOTES: Record<string, string> = {
   plain: 'Plain Gibbs sampling: each block drawn from its full conditional in turn.',
 };
 
-function siteView(site: SiteRow, decimals: number): SiteView {
+function siteView(site: SiteRow, decimals: number, share: boolean): SiteView {
   const suppressed = site.flag === 'suppress';
   const sampled = site.n > 0 && site.direct !== null;
+  const interval = share && site.direct_lower !== null && site.direct_upper !== null
+    ? `${fixed(site.direct_lower, decimals)}–${fixed(site.direct_upper, decimals)}`
+    : null;
   return {
     id: site.site,
     label: site.label,
     n: site.n,
     synthetic: site.n === 0,
     suppressed,
-    survey: sampled && !suppressed ? { mean: fixed(site.direct, decimals), se: fixed(site.direct_se, decimals), cv: percent(site.direct_cv) } : null,
+    survey: sampled && !suppressed ? { mean: fixed(site.direct, decimals), se: fixed(site.direct_se, decimals), cv: percent(site.direct_cv), interval } : null,
     estimate: suppressed ? null : fixed(site.estimate, decimals),
     interval: suppressed ? null : `${fixed(site.lower, decimals)} – ${fixed(site.upper, decimals)}`,
     cv: percent(site.cv),
@@ -118,15 +173,17 @@ function siteView(site: SiteRow, decimals: number): SiteView {
   };
 }
 
+/** The survey interval: the run's own columns where written (counts: Wilson), else direct ± z·se. */
 function chartSite(site: SiteRow, z: number): ChartSite {
   const hasDirect = site.direct !== null && site.direct_se !== null && Number.isFinite(site.direct_se);
+  const hasOwn = site.direct_lower !== null && site.direct_upper !== null && Number.isFinite(site.direct_lower) && Number.isFinite(site.direct_upper);
   return {
     id: site.site,
     label: site.label,
     n: site.n,
     direct: site.direct,
-    directLower: hasDirect ? (site.direct as number) - z * (site.direct_se as number) : null,
-    directUpper: hasDirect ? (site.direct as number) + z * (site.direct_se as number) : null,
+    directLower: hasOwn ? site.direct_lower : hasDirect ? (site.direct as number) - z * (site.direct_se as number) : null,
+    directUpper: hasOwn ? site.direct_upper : hasDirect ? (site.direct as number) + z * (site.direct_se as number) : null,
     directCv: site.direct_cv,
     estimate: site.estimate,
     lower: site.lower,
@@ -163,12 +220,13 @@ export function buildContext(run: RunFolder, opts: ContextOptions): ReportContex
   const intervalPercent = `${Number((summary.interval * 100).toPrecision(4))}%`;
   const chartSites = run.estimates.map((s) => chartSite(s, z));
   const unit = summary.measure.unit;
+  const words = wording(summary.model.kind, intervalPercent);
 
   const mapSites: MapSite[] = run.estimates.map((s) => ({ id: s.site, label: s.label, n: s.n, estimate: s.estimate, flag: s.flag }));
   const charts = {
-    intervals: intervalsChart(chartSites, { unit, level: intervalPercent }).map(safe),
-    shrinkage: safe(shrinkageChart(chartSites, { unit })),
-    cv: safe(cvChart(chartSites, { cvCaution: summary.reliability.cv_caution, cvSuppress: summary.reliability.cv_suppress })),
+    intervals: intervalsChart(chartSites, { unit, level: intervalPercent, survey: words.survey }).map(safe),
+    shrinkage: safe(shrinkageChart(chartSites, { unit, survey: words.survey })),
+    cv: safe(cvChart(chartSites, { cvCaution: summary.reliability.cv_caution, cvSuppress: summary.reliability.cv_suppress, survey: words.survey })),
     mapEstimates: opts.map ? safe(estimatesMap(opts.map, mapSites, { unit, decimals, title: summary.measure.name })) : null,
     mapFlags: opts.map ? safe(flagsMap(opts.map, mapSites, {})) : null,
   };
@@ -190,6 +248,7 @@ export function buildContext(run: RunFolder, opts: ContextOptions): ReportContex
     title: summary.title,
     period: summary.period,
     measure: summary.measure,
+    wording: words,
     converged: summary.converged,
     status: {
       rhatMax: fixed(summary.reliability.rhat_max, 3),
@@ -210,7 +269,7 @@ export function buildContext(run: RunFolder, opts: ContextOptions): ReportContex
     },
     created: manifest.created,
     tool: { name: manifest.toolName, version: manifest.toolVersion },
-    sites: run.estimates.map((s) => siteView(s, decimals)),
+    sites: run.estimates.map((s) => siteView(s, decimals, words.share)),
     charts,
     mapNotes: opts.mapNotes,
     comparisons: comparisonsView(run),
@@ -254,9 +313,13 @@ function buildAppendix(run: RunFolder): AppendixView {
   return {
     modelKind: summary.model.kind,
     equations: typeset(modelEquations(summary.model.kind)),
-    summaryEquations: typeset(summaryEquations(summary.interval)),
+    summaryEquations: typeset(summaryEquations(summary.interval, summary.model.kind)),
     priors,
     varianceNote: summary.model.variance_note,
+    varianceHeading: summary.model.kind === 'counts' ? 'Direct estimates' : 'Sampling variances',
+    directInterval: summary.model.direct_interval,
+    cvRule: summary.model.cv_rule,
+    methodNote: summary.model.method_note,
     config: { path: manifest.configPath, sha256: manifest.configSha256 },
     inputs: manifest.inputs.map((f) => ({ role: f.role, path: f.path, rows: f.rows === null ? '—' : whole(f.rows), sha256: f.sha256 })),
     coefficients: run.parameters.map((p) => ({

@@ -115,18 +115,32 @@ export function modelEquations(kind: string): Equation[] {
       return [
         { lead: 'Cases $y_i$ out of $n_i$ trials in site $i$:', tex: 'y_i \\sim \\operatorname{Binomial}(n_i,\\ p_i),\\qquad \\operatorname{logit} p_i = \\mathbf{x}_i^{\\top}\\boldsymbol{\\beta} + u_i,\\qquad u_i \\sim \\mathcal{N}(0,\\ \\sigma_u^2)' },
         { lead: 'Sampled through Pólya–Gamma augmentation (Polson, Scott & Windle 2013):', tex: '\\omega_i \\mid \\cdot \\sim \\operatorname{PG}\\!\\left(n_i,\\ \\mathbf{x}_i^{\\top}\\boldsymbol{\\beta} + u_i\\right)' },
+        {
+          lead: 'Weight on own data: the posterior mean over the draws of the shrinkage weight of the logit, with the binomial information $\\tilde{n}_i p_i (1 - p_i)$ ($\\tilde{n}_i$ the effective number of trials):',
+          tex: 'w_i = \\frac{\\tilde{n}_i\\, p_i (1 - p_i)\\, \\sigma_u^2}{1 + \\tilde{n}_i\\, p_i (1 - p_i)\\, \\sigma_u^2}',
+        },
       ];
     default:
       return [];
   }
 }
 
-/** How the published figures are derived from the draws (shared by all models). */
-export function summaryEquations(intervalLevel: number): Equation[] {
+/**
+ * How the published figures are derived from the draws. The CV follows the model's rule: sd over
+ * |estimate|, or for the shares of the counts model sd over min(p, 1 − p) (this project's rule,
+ * see shareCv in src/models/counts-prepare.ts).
+ */
+export function summaryEquations(intervalLevel: number, kind = 'area'): Equation[] {
   const alpha = Number((1 - intervalLevel).toPrecision(6));
+  const interval = `Interval: equal-tailed, the ${alpha / 2} and ${Number((1 - alpha / 2).toPrecision(6))} quantiles of the draws; reliability: the coefficient of variation`;
   return [
     { lead: 'Model estimate and its sd: mean and standard deviation of the $S$ posterior draws:', tex: '\\hat{\\theta}_i = \\frac{1}{S}\\sum_{s=1}^{S} \\theta_i^{(s)},\\qquad \\mathrm{sd}_i = \\Big(\\tfrac{1}{S-1}\\sum_{s=1}^{S} (\\theta_i^{(s)} - \\hat{\\theta}_i)^2\\Big)^{1/2}' },
-    { lead: `Interval: equal-tailed, the ${alpha / 2} and ${Number((1 - alpha / 2).toPrecision(6))} quantiles of the draws; reliability: the coefficient of variation`, tex: '\\mathrm{CV}_i = \\mathrm{sd}_i \\,/\\, |\\hat{\\theta}_i|' },
+    kind === 'counts'
+      ? {
+          lead: `${interval} of a share $\\hat{p}_i$, taken relative to the share or to its complement, whichever is smaller, so that shares near 0 and near 1 are judged alike (this project's rule; the same rule for the survey share):`,
+          tex: '\\mathrm{CV}_i = \\mathrm{sd}_i \\,/\\, \\min(\\hat{p}_i,\\ 1 - \\hat{p}_i)',
+        }
+      : { lead: interval, tex: '\\mathrm{CV}_i = \\mathrm{sd}_i \\,/\\, |\\hat{\\theta}_i|' },
   ];
 }
 

@@ -20,6 +20,9 @@ export interface SiteRow {
   direct: number | null;
   direct_se: number | null;
   direct_cv: number | null;
+  /** Interval of the direct estimate (columns added after the first format; null when absent or blank). */
+  direct_lower: number | null;
+  direct_upper: number | null;
   estimate: number;
   sd: number;
   lower: number;
@@ -63,6 +66,10 @@ export interface RunSummary {
     priors: Record<string, unknown>;
     prior_notes: Record<string, string>;
     variance_note: string | null;
+    /** The direct-estimate interval, the CV rule and the model's sampler note in words; null in older runs. */
+    direct_interval: string | null;
+    cv_rule: string | null;
+    method_note: string | null;
   };
   interval: number;
   sampling: {
@@ -242,6 +249,7 @@ function readEstimates(path: string): SiteRow[] {
     }
     const num = (column: string) => numberCell(path, line, column, cells[column]);
     const req = (column: string) => requiredNumber(path, line, column, cells[column]);
+    const optionalColumn = (column: string) => (column in cells ? num(column) : null);
     const n = req('n');
     if (!(n >= 0) || !Number.isInteger(n)) throw fail(`${path}: line ${line}, column n: "${cells.n}" is not a whole number ≥ 0`);
     return {
@@ -251,6 +259,8 @@ function readEstimates(path: string): SiteRow[] {
       direct: num('direct'),
       direct_se: num('direct_se'),
       direct_cv: num('direct_cv'),
+      direct_lower: optionalColumn('direct_lower'),
+      direct_upper: optionalColumn('direct_upper'),
       estimate: req('estimate'),
       sd: req('sd'),
       lower: req('lower'),
@@ -390,6 +400,9 @@ function readSummary(path: string): RunSummary {
       priors: g.optionalObject(model, 'priors') ?? {},
       prior_notes: notes,
       variance_note: g.optionalString(model, 'variance_note'),
+      direct_interval: g.optionalString(model, 'direct_interval'),
+      cv_rule: g.optionalString(model, 'cv_rule'),
+      method_note: g.optionalString(model, 'method_note'),
     },
     interval: g.number(json, 'interval'),
     sampling: {

@@ -5,6 +5,7 @@
 import type { Settings } from '../config/types.js';
 import type { SiteInputs } from '../models/prepared.js';
 import type { QuantitySummary } from './posterior.js';
+import { normalQuantile } from '../diagnostics/normal-quantile.js';
 
 export type Flag = 'publish' | 'caution' | 'suppress';
 
@@ -16,6 +17,12 @@ export interface SiteEstimate {
   direct: number;
   directSe: number;
   directCv: number;
+  /**
+   * Interval of the direct estimate at the run's interval level: the model's own where it has one
+   * (counts: Wilson score), else the normal interval direct ± z·direct_se; NaN where not available.
+   */
+  directLower: number;
+  directUpper: number;
   estimate: number;
   sd: number;
   lower: number;
@@ -135,7 +142,8 @@ export function worstFlag(findings: readonly Finding[]): Flag {
 
 /**
  * Builds the per-site table. `summaries` holds every monitored quantity by name; `weights` is
- * each site's posterior mean weight on its own data.
+ * each site's posterior mean weight on its own data; `interval` is the run's interval level,
+ * used for the normal interval of the direct estimate when the model provides none.
  */
 export function siteEstimates(
   sites: SiteInputs,
@@ -143,8 +151,11 @@ export function siteEstimates(
   weights: Float64Array,
   rules: Settings['reliability'],
   gate: GateResult,
+  interval: number,
 ): SiteEstimate[] {
   const ranges = sampledRanges(sites);
+  const z = normalQuantile(0.5 + interval / 2);
+  const own = sites.directInterval;
   const cvOf = sites.cvOf ?? ((estimate: number, sd: number) => sd / Math.abs(estimate));
   return sites.siteIds.map((site, i) => {
     const q = summaries.get(`site:${site}`)!;
@@ -156,6 +167,8 @@ export function siteEstimates(
       direct: sampled ? sites.direct[i] : NaN,
       directSe: sampled ? sites.directSe[i] : NaN,
       directCv: sampled ? cvOf(sites.direct[i], sites.directSe[i]) : NaN,
+      directLower: !sampled ? NaN : own ? own.lower[i] : sites.direct[i] - z * sites.directSe[i],
+      directUpper: !sampled ? NaN : own ? own.upper[i] : sites.direct[i] + z * sites.directSe[i],
       estimate: q.mean,
       sd: q.sd,
       lower: q.lower,
