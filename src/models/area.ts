@@ -32,6 +32,14 @@ import type { AreaData } from '../data/types.js';
 import type { Kernel, Phase } from '../sampler/kernel.js';
 import type { Rng } from '../sampler/rng.js';
 import { gamma, inverseGamma, normal } from '../sampler/variates.js';
+import {
+  independenceScaleUpdate,
+  PROPOSAL_INFLATION,
+  sliceScaleUpdate,
+  type SliceScale,
+} from '../sampler/scale-updates.js';
+
+export type { SliceScale };
 import { choleskyLower, solveLowerInPlace, solveUpperTransposedInPlace } from './linalg.js';
 
 export type AreaSamplerMethod = 'collapsed' | 'plain';
@@ -239,7 +247,6 @@ function logMarginalLogSigma(t: number, d: Packed, prior: ScalePrior, work: Marg
 // ---------------------------------------------------------------------------------------------
 // Collapsed sampler
 
-export type SliceScale = 'log' | 'linear';
 
 /**
  * The σ_u updates the collapsed sampler can use; each leaves p(σ_u | y) invariant, so warmup
@@ -275,7 +282,6 @@ export interface CollapsedState {
   tune: Float64Array;
 }
 
-const STEP_OUT_LIMIT = 32;
 
 /** Draws that tune the slice during warmup: after 25, 50, 100, 200, … iterations. */
 function isTuningPoint(iteration: number): boolean {
@@ -284,54 +290,19 @@ function isTuningPoint(iteration: number): boolean {
 }
 
 /**
- * Log density of σ_u's marginal posterior on a slice scale: on log σ it is the density of
- * t = log σ; on σ itself the Jacobian e^t is removed, and σ ≤ 0 is outside the support.
- */
-function logTargetOnScale(x: number, scale: SliceScale, d: Packed, prior: ScalePrior, work: MarginalWork): number {
-  if (scale === 'log') return logMarginalLogSigma(x, d, prior, work);
-  if (!(x > 0)) return -Infinity;
-  const t = Math.log(x);
-  return logMarginalLogSigma(t, d, prior, work) - t;
-}
-
-/**
- * One slice-sampling update of σ_u on the given scale (Neal 2003, fig. 3 stepping-out, fig. 5
- * shrinkage). Each scale's update leaves the posterior invariant, so warmup may alternate them.
+ * One slice-sampling update of σ_u on the given scale (src/sampler/scale-updates.ts). Each
+ * scale's update leaves the posterior invariant, so warmup may alternate them. The accepted
+ * point is the last one evaluated, so the work buffers hold P's factor and L⁻¹b there.
  */
 function sliceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, prior: ScalePrior, rng: Rng): void {
-  const { work } = state;
-  const t0 = Math.log(state.sigma);
-  const x0 = scale === 'log' ? t0 : state.sigma;
-  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
-  const target = (x: number): number => {
+  const width = scale === 'log' ? state.widthLog : state.widthLinear;
+  const density = (t: number): number => {
     state.evaluations++;
-    return logTargetOnScale(x, scale, d, prior, work);
+    return logMarginalLogSigma(t, d, prior, state.work);
   };
-  const level = current + Math.log(rng.uniform()); // log of a uniform height under the density
-  const w = scale === 'log' ? state.widthLog : state.widthLinear;
-  let lo = x0 - w * rng.uniform();
-  let hi = lo + w;
-  let leftSteps = Math.floor(STEP_OUT_LIMIT * rng.uniform());
-  let rightSteps = STEP_OUT_LIMIT - 1 - leftSteps;
-  while (leftSteps > 0 && target(lo) > level) {
-    lo -= w;
-    leftSteps--;
-  }
-  while (rightSteps > 0 && target(hi) > level) {
-    hi += w;
-    rightSteps--;
-  }
-  for (;;) {
-    const x1 = lo + (hi - lo) * rng.uniform();
-    const value = target(x1);
-    if (value > level) {
-      state.sigma = scale === 'log' ? Math.exp(x1) : x1;
-      state.logTarget = scale === 'log' ? value : value + Math.log(x1);
-      return; // the work buffers now hold P's factor and L⁻¹b at the accepted σ
-    }
-    if (x1 < x0) lo = x1;
-    else hi = x1;
-  }
+  const move = sliceScaleUpdate(state.sigma, state.logTarget, scale, width, density, rng);
+  state.sigma = move.sigma;
+  state.logTarget = move.logTarget;
 }
 
 /** β | σ, y ~ N(P⁻¹b, P⁻¹), from the factor L (P = LLᵀ) and v = L⁻¹b left in the work buffers. */
@@ -387,54 +358,27 @@ function startingLogSigma(d: Packed, rng: Rng): number {
   return 0.5 * Math.log(excess) + normal(rng);
 }
 
-/** Degrees of freedom of the independence proposal: heavier tails than the target's. */
-const PROPOSAL_DF = 5;
-/** The proposal's spread over the warmup sd: wide enough to cover the target's tails. */
-const PROPOSAL_INFLATION = 1.3;
-
-function logStudentT(x: number, centre: number, spread: number): number {
-  const z = (x - centre) / spread;
-  return -0.5 * (PROPOSAL_DF + 1) * Math.log1p((z * z) / PROPOSAL_DF) - Math.log(spread);
-}
-
-/** Log density of the proposal: Student-t on log σ; on σ folded at zero (|x|), so no proposal is wasted below zero. */
-function logProposal(x: number, scale: SliceScale, centre: number, spread: number): number {
-  if (scale === 'log') return logStudentT(x, centre, spread);
-  const a = logStudentT(x, centre, spread);
-  const b = logStudentT(-x, centre, spread);
-  const top = Math.max(a, b);
-  return top + Math.log(Math.exp(a - top) + Math.exp(b - top));
-}
-
 /**
- * Independence Metropolis–Hastings update of σ_u (Tierney 1994, Annals of Statistics 22(4))
- * with a Student-t proposal fitted to the warmup draws on log σ or σ. One evaluation of the
- * marginal per update; with a proposal wider than the target it is uniformly ergodic
- * (Mengersen & Tweedie 1996). The proposal is evaluated into the spare buffers, which become
- * the current ones on acceptance, so the β draw always reads the factor at the current σ.
+ * Independence Metropolis–Hastings update of σ_u with a Student-t proposal fitted to the warmup
+ * draws on log σ or σ (src/sampler/scale-updates.ts). The proposal is evaluated into the spare
+ * buffers, which become the current ones on acceptance, so the β draw always reads the factor
+ * at the current σ.
  */
 function independenceUpdateSigma(state: CollapsedState, scale: SliceScale, d: Packed, prior: ScalePrior, rng: Rng): void {
   const k = scale === 'log' ? 0 : 1;
-  const centre = state.proposalCentre[k];
-  const spread = state.proposalSpread[k];
-  const g = gamma(rng, PROPOSAL_DF / 2) / (PROPOSAL_DF / 2);
-  const raw = centre + (spread * normal(rng)) / Math.sqrt(g);
-  const x1 = scale === 'log' ? raw : Math.abs(raw);
-  state.evaluations++;
-  const value = logTargetOnScale(x1, scale, d, prior, state.spare);
-  if (value === -Infinity) return;
-  const t0 = Math.log(state.sigma);
-  const x0 = scale === 'log' ? t0 : state.sigma;
-  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
-  const logRatio =
-    value - current + logProposal(x0, scale, centre, spread) - logProposal(x1, scale, centre, spread);
-  if (Math.log(rng.uniform()) < logRatio) {
-    state.sigma = scale === 'log' ? Math.exp(x1) : x1;
-    state.logTarget = scale === 'log' ? value : value + Math.log(x1);
-    const used = state.work;
-    state.work = state.spare;
-    state.spare = used;
-  }
+  const density = (t: number): number => {
+    state.evaluations++;
+    return logMarginalLogSigma(t, d, prior, state.spare);
+  };
+  const move = independenceScaleUpdate(
+    state.sigma, state.logTarget, scale, state.proposalCentre[k], state.proposalSpread[k], density, rng,
+  );
+  if (!move.accepted) return;
+  state.sigma = move.sigma;
+  state.logTarget = move.logTarget;
+  const used = state.work;
+  state.work = state.spare;
+  state.spare = used;
 }
 
 function updateSigma(state: CollapsedState, update: SigmaUpdate, d: Packed, prior: ScalePrior, rng: Rng): void {

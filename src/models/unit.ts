@@ -57,8 +57,14 @@ import type { CoefficientPrior, ScalePrior } from '../config/types.js';
 import type { UnitData } from '../data/unit-data.js';
 import type { Kernel, Phase } from '../sampler/kernel.js';
 import type { Rng } from '../sampler/rng.js';
-import { gamma, normal } from '../sampler/variates.js';
-import { logPriorLogSigma, type SliceScale } from './area.js';
+import { normal } from '../sampler/variates.js';
+import { logPriorLogSigma } from './area.js';
+import {
+  independenceScaleUpdate,
+  PROPOSAL_INFLATION,
+  sliceScaleUpdate,
+  type SliceScale,
+} from '../sampler/scale-updates.js';
 import { choleskyLower, solveLowerInPlace, solveUpperTransposedInPlace } from './linalg.js';
 
 export interface UnitModelSpec {
@@ -355,13 +361,9 @@ export interface UnitState {
   tune: Float64Array;
 }
 
-const STEP_OUT_LIMIT = 32;
 const TUNE_FIELDS = 5 + 2 * UNIT_SIGMA_UPDATES.length;
 /** σ_e first, then σ_u. */
 const SWEEP_ORDER = [UNIT, SITE] as const;
-/** Degrees of freedom and widening of the independence proposals (as in src/models/area.ts). */
-const PROPOSAL_DF = 5;
-const PROPOSAL_INFLATION = 1.3;
 /** Fixed cost of a sweep beyond the marginal evaluations, in the cost units of `tuneUpdate`. */
 const SWEEP_FIXED_COST = 500;
 
@@ -371,96 +373,48 @@ function isTuningPoint(iteration: number): boolean {
   return Number.isInteger(k) && (k & (k - 1)) === 0;
 }
 
-/** Log target of parameter k at x on a scale (log σ, or σ with the Jacobian removed), the other fixed. */
-function targetOnScale(x: number, k: number, scale: SliceScale, other: number, core: UnitCore, spec: UnitModelSpec, work: UnitWork): number {
-  const t = scale === 'log' ? x : x > 0 ? Math.log(x) : NaN;
-  if (Number.isNaN(t)) return -Infinity;
-  const value = k === SITE ? logTargetLog(core, spec, t, other, work) : logTargetLog(core, spec, other, t, work);
-  return scale === 'log' ? value : value - t;
+/** Log density of t = log σ_k with the other standard deviation fixed (log σ_other = other). */
+function logDensityOf(k: number, other: number, core: UnitCore, spec: UnitModelSpec, work: UnitWork): (t: number) => number {
+  return (t) => (k === SITE ? logTargetLog(core, spec, t, other, work) : logTargetLog(core, spec, other, t, work));
 }
 
 /**
  * One slice-sampling update of σ_u (k = 0) or σ_e (k = 1) with the other fixed, on log σ or σ
- * (Neal 2003, fig. 3 stepping out, fig. 5 shrinkage). Leaves the work buffers at the accepted point.
+ * (src/sampler/scale-updates.ts). Leaves the work buffers at the accepted point.
  */
 function sliceUpdate(state: UnitState, k: number, scale: SliceScale, core: UnitCore, spec: UnitModelSpec, rng: Rng): void {
-  const { sigma } = state;
-  const other = Math.log(sigma[1 - k]);
-  const target = (x: number) => {
+  const density = logDensityOf(k, Math.log(state.sigma[1 - k]), core, spec, state.work);
+  const counted = (t: number): number => {
     state.evaluations++;
-    return targetOnScale(x, k, scale, other, core, spec, state.work);
+    return density(t);
   };
-  const t0 = Math.log(sigma[k]);
-  const x0 = scale === 'log' ? t0 : sigma[k];
-  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
-  const level = current + Math.log(rng.uniform());
-  const w = scale === 'log' ? state.widthLog[k] : state.widthLinear[k];
-  let lo = x0 - w * rng.uniform();
-  let hi = lo + w;
-  let leftSteps = Math.floor(STEP_OUT_LIMIT * rng.uniform());
-  let rightSteps = STEP_OUT_LIMIT - 1 - leftSteps;
-  while (leftSteps > 0 && target(lo) > level) {
-    lo -= w;
-    leftSteps--;
-  }
-  while (rightSteps > 0 && target(hi) > level) {
-    hi += w;
-    rightSteps--;
-  }
-  for (;;) {
-    const x1 = lo + (hi - lo) * rng.uniform();
-    const value = target(x1);
-    if (value > level) {
-      sigma[k] = scale === 'log' ? Math.exp(x1) : x1;
-      state.logTarget = scale === 'log' ? value : value + Math.log(x1);
-      return;
-    }
-    if (x1 < x0) lo = x1;
-    else hi = x1;
-  }
-}
-
-function logStudentT(x: number, centre: number, spread: number): number {
-  const z = (x - centre) / spread;
-  return -0.5 * (PROPOSAL_DF + 1) * Math.log1p((z * z) / PROPOSAL_DF) - Math.log(spread);
-}
-
-/** Log density of the proposal: Student-t on log σ; on σ folded at zero (|x|). */
-function logProposal(x: number, scale: SliceScale, centre: number, spread: number): number {
-  if (scale === 'log') return logStudentT(x, centre, spread);
-  const a = logStudentT(x, centre, spread);
-  const b = logStudentT(-x, centre, spread);
-  const top = Math.max(a, b);
-  return top + Math.log(Math.exp(a - top) + Math.exp(b - top));
+  const width = scale === 'log' ? state.widthLog[k] : state.widthLinear[k];
+  const move = sliceScaleUpdate(state.sigma[k], state.logTarget, scale, width, counted, rng);
+  state.sigma[k] = move.sigma;
+  state.logTarget = move.logTarget;
 }
 
 /**
- * Independence Metropolis–Hastings update of σ_u or σ_e given the other (Tierney 1994, Annals of
- * Statistics 22(4)), a valid Metropolis-within-Gibbs step for any fixed proposal. One evaluation
- * of the marginal, into the spare buffers, which become the current ones on acceptance.
+ * Independence Metropolis–Hastings update of σ_u or σ_e given the other, a valid
+ * Metropolis-within-Gibbs step for any fixed proposal (src/sampler/scale-updates.ts). One
+ * evaluation of the marginal, into the spare buffers, which become the current ones on acceptance.
  */
 function independenceUpdate(state: UnitState, k: number, scale: SliceScale, core: UnitCore, spec: UnitModelSpec, rng: Rng): void {
   const slot = 2 * k + (scale === 'log' ? 0 : 1);
-  const centre = state.proposalCentre[slot];
-  const spread = state.proposalSpread[slot];
-  const g = gamma(rng, PROPOSAL_DF / 2) / (PROPOSAL_DF / 2);
-  const raw = centre + (spread * normal(rng)) / Math.sqrt(g);
-  const x1 = scale === 'log' ? raw : Math.abs(raw);
-  state.evaluations++;
-  const other = Math.log(state.sigma[1 - k]);
-  const value = targetOnScale(x1, k, scale, other, core, spec, state.spare);
-  if (value === -Infinity) return;
-  const t0 = Math.log(state.sigma[k]);
-  const x0 = scale === 'log' ? t0 : state.sigma[k];
-  const current = scale === 'log' ? state.logTarget : state.logTarget - t0;
-  const logRatio = value - current + logProposal(x0, scale, centre, spread) - logProposal(x1, scale, centre, spread);
-  if (Math.log(rng.uniform()) < logRatio) {
-    state.sigma[k] = scale === 'log' ? Math.exp(x1) : x1;
-    state.logTarget = scale === 'log' ? value : value + Math.log(x1);
-    const used = state.work;
-    state.work = state.spare;
-    state.spare = used;
-  }
+  const density = logDensityOf(k, Math.log(state.sigma[1 - k]), core, spec, state.spare);
+  const counted = (t: number): number => {
+    state.evaluations++;
+    return density(t);
+  };
+  const move = independenceScaleUpdate(
+    state.sigma[k], state.logTarget, scale, state.proposalCentre[slot], state.proposalSpread[slot], counted, rng,
+  );
+  if (!move.accepted) return;
+  state.sigma[k] = move.sigma;
+  state.logTarget = move.logTarget;
+  const used = state.work;
+  state.work = state.spare;
+  state.spare = used;
 }
 
 /** Warmup cycles through the updates (an independence one once its proposal exists). */
