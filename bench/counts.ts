@@ -92,7 +92,7 @@ async function runScenario(s: Scenario): Promise<void> {
     const t = outcome.timingsMs;
     console.log(
       `${s.name.padEnd(28)} ${s.method.padEnd(9)} wall ${seconds.toFixed(2)} s ` +
-        `(read ${t.read} ms, sample ${t.sample} ms, summarize ${t.summarize} ms, write ${t.write} ms)  ` +
+        `(read ${t.read} ms, sample ${t.sample} ms, summarize ${t.summarize} ms [diagnostics ${t.diagnostics}, estimates ${t.estimates}, frequentist ${t.frequentist ?? 0}, certificate ${t.certificate ?? 0}, checks ${t.checks ?? 0}], write ${t.write} ms)  ` +
         `ESS/draw σ_u ${(ess.sigma / total).toFixed(2)}, median site ${(ess.medianSite / total).toFixed(2)}  ` +
         `ESS/s σ_u ${Math.round(ess.sigma / seconds)}, median site ${Math.round(ess.medianSite / seconds)}  ` +
         `converged ${outcome.converged}`,

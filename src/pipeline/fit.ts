@@ -50,25 +50,33 @@ const MODEL_CHECK_STREAM = 1_000_000;
 
 /**
  * Draws the model checks use, evenly spaced through the pooled draws: a predictive p-value
- * from 1,000 draws has Monte Carlo error ≤ 0.5/√1000 ≈ 0.016, ample for flagging the outer 5%,
- * and the checks (a distribution function per site and draw) then cost the same for any run length.
+ * from 500 draws has Monte Carlo error ≤ 0.5/√500 ≈ 0.022 (less in the tails that matter),
+ * enough for a screening check, and the checks (a distribution function per site and draw)
+ * then cost the same for any run length.
  */
-const MODEL_CHECK_DRAWS = 1000;
+const MODEL_CHECK_DRAWS = 500;
 
-/** Every k-th value so that at most `most` remain (all of them when there are fewer). */
-function thinned(values: Float64Array, most: number): Float64Array {
-  if (values.length <= most) return values;
-  const out = new Float64Array(most);
-  const step = values.length / most;
-  for (let i = 0; i < most; i++) out[i] = values[Math.floor(i * step)];
-  return out;
-}
 
-/** Pooled draws of one quantity over all chains. */
-function pooledDraws(chains: readonly ChainValues[], q: number): Float64Array {
+
+/**
+ * Pooled draws of one quantity over all chains; with `most`, at most that many, evenly spaced
+ * (the same positions for every quantity, so draws of different quantities stay paired).
+ */
+function pooledDraws(chains: readonly ChainValues[], q: number, most = Infinity): Float64Array {
   const D = chains[0].draws;
-  const out = new Float64Array(chains.length * D);
-  chains.forEach((c, k) => out.set(c.values.subarray(q * D, (q + 1) * D), k * D));
+  const total = chains.length * D;
+  if (total <= most) {
+    const out = new Float64Array(total);
+    chains.forEach((c, k) => out.set(c.values.subarray(q * D, (q + 1) * D), k * D));
+    return out;
+  }
+  const out = new Float64Array(most);
+  const step = total / most;
+  for (let i = 0; i < most; i++) {
+    const k = Math.floor(i * step);
+    const chain = Math.floor(k / D);
+    out[i] = chains[chain].values[q * D + (k - chain * D)];
+  }
   return out;
 }
 
@@ -169,15 +177,19 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
   timingsMs.sample = lap();
 
   const names = prepared.quantities;
+  const position = new Map(names.map((name, q) => [name, q]));
+  const at = (quantity: string): number => position.get(quantity) ?? -1;
   const summaries = await summarizeChains(chains, names, settings.interval, threads);
+  timingsMs.diagnostics = lap();
   const byName = new Map(summaries.map((s) => [s.name, s]));
   const gate = evaluateGate(summaries, settings.reliability.rhat_max, settings.reliability.ess_min);
-  const weights = prepared.weightDirect((quantity) => pooledDraws(chains, names.indexOf(quantity)));
+  const weights = prepared.weightDirect((quantity) => pooledDraws(chains, at(quantity)));
   const sites = siteEstimates(prepared.sites, byName, weights, settings.reliability, gate, settings.interval);
+  timingsMs.estimates = lap();
   const benchmark = benchmarkWeights && settings.benchmark
     ? benchmarkDraws(
         chains,
-        prepared.sites.siteIds.map((id) => names.indexOf(`site:${id}`)),
+        prepared.sites.siteIds.map((id) => at(`site:${id}`)),
         benchmarkWeights,
         settings.benchmark.total,
         settings.benchmark.method,
@@ -186,13 +198,16 @@ export async function runFit(options: FitOptions): Promise<FitOutcome> {
     : null;
   if (benchmark && settings.benchmark) warnIfFarFromOne(benchmark, settings.benchmark.weights, options.onWarning);
   const frequentist = frequentistCrossCheck(prepared, sites, options.onWarning);
+  timingsMs.frequentist = lap();
   const certificate = certify(prepared, byName, options.onWarning);
+  timingsMs.certificate = lap();
   const checks = prepared.modelChecks?.(
-    (quantity) => thinned(pooledDraws(chains, names.indexOf(quantity)), MODEL_CHECK_DRAWS),
+    (quantity) => pooledDraws(chains, at(quantity), MODEL_CHECK_DRAWS),
     Float64Array.from(sites, (s) => s.estimate),
     createRng(sampling.seed, MODEL_CHECK_STREAM),
   ) ?? null;
-  timingsMs.summarize = lap();
+  timingsMs.checks = lap();
+  timingsMs.summarize = timingsMs.diagnostics + timingsMs.estimates + timingsMs.frequentist + timingsMs.certificate + timingsMs.checks;
 
   const runDir = await writeRunFolder(options.outDir, runFolderFiles(settings, prepared, {
     names, chains, summaries, sites, gate, benchmark, frequentist, certificate, checks, threads, configSha256, command: options.command, timingsMs,
