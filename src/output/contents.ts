@@ -102,12 +102,12 @@ export const DEFAULT_CV_RULE = 'sd / |estimate|';
 export function modelChecksNote(kind: string, extremeLevel: number): string {
   const checks =
     kind === 'unit'
-      ? 'Posterior predictive p-value of each site\'s sample mean, P(ȳ_rep ≥ ȳ | data) with ȳ_rep ~ N(x̄β + u, σ_e²/n), ' +
+      ? 'Posterior predictive p-value of each site\'s sample mean, P(ȳ_rep ≥ ȳ | data) with ȳ_rep drawn from N(x̄β + u, σ_e²/n), ' +
         'and of the discrepancy Σ n(ȳ − x̄β − u)²/σ_e² overall (Gelman, Meng & Stern 1996); ' +
         'standardized residuals (ȳ − x̄β)/√(σ_u² + σ_e²/n), x̄ the sample means of the covariates. '
       : kind === 'counts'
         ? 'Posterior predictive mid-p value of each site\'s cases, P(y_rep > y | data) + ½ P(y_rep = y | data) with ' +
-          'y_rep ~ Binomial(n, p), and of the discrepancy Σ (y − np)²/(np(1 − p)) overall (Gelman, Meng & Stern 1996); ' +
+          'y_rep drawn from Binomial(n, p), and of the discrepancy Σ (y − np)²/(np(1 − p)) overall (Gelman, Meng & Stern 1996); ' +
           'standardized residuals (y/n − p̄)/√(p̄(1 − p̄)/n + (1 − 1/n)v), p̄ and v the mean and variance of ' +
           'expit(xβ + u), u ~ N(0, σ_u²). Under a design effect the effective counts y/deff and n/deff, rounded to whole numbers, are used. '
         : 'Posterior predictive p-value of each direct estimate, P(y_rep ≥ y | data), and of the discrepancy ' +
