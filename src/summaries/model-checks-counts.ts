@@ -24,7 +24,7 @@
  * - the mean of the model estimates against the mean of the survey shares over sampled sites.
  */
 import type { Rng } from '../sampler/rng.js';
-import type { ModelChecks } from './model-checks.js';
+import { posteriorMeans, type ModelChecks } from './model-checks.js';
 
 /**
  * Lanczos coefficients for g = 7, n = 9 (Lanczos 1964, SIAM J. Numer. Anal. B1; the set printed
@@ -208,10 +208,9 @@ export function countsModelChecks(
   extremeLevel = 0.05,
 ): ModelChecks {
   const S = siteSd.length;
-  const betaMean = beta.map((b) => b.reduce((a, v) => a + v, 0) / S);
-  let siteVar = 0;
-  for (let k = 0; k < S; k++) siteVar += siteSd[k] * siteSd[k];
-  const siteSdMean = Math.sqrt(siteVar / S);
+  const means = posteriorMeans(beta, siteSd);
+  const betaMean = means.beta;
+  const siteSdMean = Math.sqrt(means.variance);
   const realized = new Float64Array(S);
   const replicated = new Float64Array(S);
   let sumDirect = 0;

@@ -17,9 +17,7 @@
  * - the mean of the model estimates against the mean of the sample means over sampled sites.
  */
 import type { Rng } from '../sampler/rng.js';
-import { normal } from '../sampler/variates.js';
-import { normalCdf } from './exact.js';
-import type { ModelChecks } from './model-checks.js';
+import { fittedValue, normalModelChecks, posteriorMeans, type ModelChecks } from './model-checks.js';
 
 export interface UnitCheckInput {
   siteIds: string[];
@@ -47,55 +45,25 @@ export function unitModelChecks(
   rng: Rng,
   extremeLevel = 0.05,
 ): ModelChecks {
-  const S = siteSd.length;
-  const betaMean = beta.map((b) => b.reduce((a, v) => a + v, 0) / S);
-  let siteVar = 0;
-  let unitVar = 0;
-  for (let k = 0; k < S; k++) {
-    siteVar += siteSd[k] * siteSd[k];
-    unitVar += unitSd[k] * unitSd[k];
-  }
-  siteVar /= S;
-  unitVar /= S;
-  const realized = new Float64Array(S);
-  const replicated = new Float64Array(S);
-  let sumDirect = 0;
-  let sumModel = 0;
-  let sampled = 0;
-  const sites = input.siteIds.map((site, i) => {
-    const n = input.n[i];
-    if (!(n > 0)) return { site, ppp: NaN, residual: NaN, extreme: false };
-    const y = input.ybar[i];
-    const draws = sampleMean(i);
-    let upper = 0;
-    for (let k = 0; k < S; k++) {
-      const sd = unitSd[k] / Math.sqrt(n);
-      const z = (y - draws[k]) / sd;
-      upper += 1 - normalCdf(z);
-      realized[k] += z * z;
-      const e = normal(rng);
-      replicated[k] += e * e;
-    }
-    const ppp = upper / S;
-    let fitted = 0;
-    for (let j = 0; j < input.p; j++) fitted += input.xbar[i * input.p + j] * betaMean[j];
-    sumDirect += y;
-    sumModel += estimates[i];
-    sampled++;
-    return {
-      site,
-      ppp,
-      residual: (y - fitted) / Math.sqrt(siteVar + unitVar / n),
-      extreme: ppp < extremeLevel / 2 || ppp > 1 - extremeLevel / 2,
-    };
-  });
-  let exceed = 0;
-  for (let k = 0; k < S; k++) if (replicated[k] >= realized[k]) exceed++;
-  return {
-    sites,
-    overallPpp: exceed / S,
+  const site = posteriorMeans(beta, siteSd);
+  const unit = posteriorMeans([], unitSd);
+  return normalModelChecks(
+    input.siteIds,
+    (i) => {
+      const n = input.n[i];
+      if (!(n > 0)) return null;
+      const root = Math.sqrt(n);
+      return {
+        y: input.ybar[i],
+        mean: sampleMean(i),
+        sdAt: (k) => unitSd[k] / root,
+        fitted: fittedValue(input.xbar, input.p, i, site.beta),
+        residualSd: Math.sqrt(site.variance + unit.variance / n),
+        estimate: estimates[i],
+      };
+    },
+    siteSd.length,
+    rng,
     extremeLevel,
-    meanDirect: sumDirect / sampled,
-    meanModel: sumModel / sampled,
-  };
+  );
 }

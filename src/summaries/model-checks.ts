@@ -45,6 +45,80 @@ export interface AreaCheckInput {
   hasData: Uint8Array;
 }
 
+/** One sampled site, as the normal-error checks need it. */
+export interface NormalCheckSite {
+  /** The direct estimate. */
+  y: number;
+  /** Pooled draws of the mean the model predicts for it. */
+  mean: Float64Array;
+  /** Its sampling sd at draw k. */
+  sdAt: (k: number) => number;
+  /** The regression fit at the posterior mean coefficients, and the marginal sd about it. */
+  fitted: number;
+  residualSd: number;
+  /** The reported estimate of the site. */
+  estimate: number;
+}
+
+/**
+ * The checks of every model whose direct estimate is normal given its mean (area: ψ_i; unit:
+ * σ_e²/n_i). `site(i)` is null for an unsampled site. The per-site p-value is in closed form
+ * per draw; the overall discrepancy Σ z² is compared with a sum of squared standard normals,
+ * one replicate per draw from `rng`.
+ */
+export function normalModelChecks(
+  siteIds: readonly string[],
+  site: (i: number) => NormalCheckSite | null,
+  S: number,
+  rng: Rng,
+  extremeLevel: number,
+): ModelChecks {
+  const realized = new Float64Array(S);
+  const replicated = new Float64Array(S);
+  let sumDirect = 0;
+  let sumModel = 0;
+  let sampled = 0;
+  const sites = siteIds.map((id, i) => {
+    const s = site(i);
+    if (s === null) return { site: id, ppp: NaN, residual: NaN, extreme: false };
+    let upper = 0;
+    for (let k = 0; k < S; k++) {
+      const z = (s.y - s.mean[k]) / s.sdAt(k);
+      upper += 1 - normalCdf(z);
+      realized[k] += z * z;
+      const e = normal(rng);
+      replicated[k] += e * e;
+    }
+    const ppp = upper / S;
+    sumDirect += s.y;
+    sumModel += s.estimate;
+    sampled++;
+    return {
+      site: id,
+      ppp,
+      residual: (s.y - s.fitted) / s.residualSd,
+      extreme: ppp < extremeLevel / 2 || ppp > 1 - extremeLevel / 2,
+    };
+  });
+  let exceed = 0;
+  for (let k = 0; k < S; k++) if (replicated[k] >= realized[k]) exceed++;
+  return { sites, overallPpp: exceed / S, extremeLevel, meanDirect: sumDirect / sampled, meanModel: sumModel / sampled };
+}
+
+/** Posterior means of the coefficients and of a variance σ² from pooled draws of σ. */
+export function posteriorMeans(beta: Float64Array[], sd: Float64Array): { beta: number[]; variance: number } {
+  const S = sd.length;
+  let variance = 0;
+  for (let k = 0; k < S; k++) variance += sd[k] * sd[k];
+  return { beta: beta.map((b) => b.reduce((a, v) => a + v, 0) / S), variance: variance / S };
+}
+
+export function fittedValue(X: Float64Array, p: number, i: number, beta: readonly number[]): number {
+  let fitted = 0;
+  for (let j = 0; j < p; j++) fitted += X[i * p + j] * beta[j];
+  return fitted;
+}
+
 /**
  * `theta(i)` returns the pooled draws of θ_i, `beta` and `siteSd` the pooled draws of the
  * coefficients and σ_u; `estimates[i]` the posterior mean of θ_i. One replicate per draw
@@ -59,49 +133,24 @@ export function areaModelChecks(
   rng: Rng,
   extremeLevel = 0.05,
 ): ModelChecks {
-  const S = siteSd.length;
-  const betaMean = beta.map((b) => b.reduce((a, v) => a + v, 0) / S);
-  let s2Mean = 0;
-  for (let k = 0; k < S; k++) s2Mean += siteSd[k] * siteSd[k];
-  s2Mean /= S;
-  const realized = new Float64Array(S);
-  const replicated = new Float64Array(S);
-  let sumDirect = 0;
-  let sumModel = 0;
-  let sampled = 0;
-  const sites = input.siteIds.map((site, i) => {
-    if (!input.hasData[i]) return { site, ppp: NaN, residual: NaN, extreme: false };
-    const y = input.direct[i];
-    const psi = input.variance[i];
-    const sd = Math.sqrt(psi);
-    const draws = theta(i);
-    let upper = 0;
-    for (let k = 0; k < S; k++) {
-      upper += 1 - normalCdf((y - draws[k]) / sd);
-      realized[k] += (y - draws[k]) ** 2 / psi;
-      const e = normal(rng);
-      replicated[k] += e * e;
-    }
-    const ppp = upper / S;
-    let fitted = 0;
-    for (let j = 0; j < input.p; j++) fitted += input.X[i * input.p + j] * betaMean[j];
-    sumDirect += y;
-    sumModel += estimates[i];
-    sampled++;
-    return {
-      site,
-      ppp,
-      residual: (y - fitted) / Math.sqrt(psi + s2Mean),
-      extreme: ppp < extremeLevel / 2 || ppp > 1 - extremeLevel / 2,
-    };
-  });
-  let exceed = 0;
-  for (let k = 0; k < S; k++) if (replicated[k] >= realized[k]) exceed++;
-  return {
-    sites,
-    overallPpp: exceed / S,
+  const means = posteriorMeans(beta, siteSd);
+  return normalModelChecks(
+    input.siteIds,
+    (i) => {
+      if (!input.hasData[i]) return null;
+      const psi = input.variance[i];
+      const sd = Math.sqrt(psi);
+      return {
+        y: input.direct[i],
+        mean: theta(i),
+        sdAt: () => sd,
+        fitted: fittedValue(input.X, input.p, i, means.beta),
+        residualSd: Math.sqrt(psi + means.variance),
+        estimate: estimates[i],
+      };
+    },
+    siteSd.length,
+    rng,
     extremeLevel,
-    meanDirect: sumDirect / sampled,
-    meanModel: sumModel / sampled,
-  };
+  );
 }
