@@ -213,6 +213,12 @@ export interface ContextOptions {
 }
 
 /** Everything the templates print, from the run folder. */
+/** Whether the run's unit model targeted finite-population means (recorded settings). */
+function finitePopulationRun(run: RunFolder): boolean {
+  const model = run.manifest.settings?.model as { finite_population?: unknown } | undefined;
+  return model?.finite_population === true;
+}
+
 export function buildContext(run: RunFolder, opts: ContextOptions): ReportContext {
   const { summary, manifest } = run;
   const decimals = summary.measure.decimals;
@@ -312,7 +318,7 @@ function buildAppendix(run: RunFolder): AppendixView {
 
   return {
     modelKind: summary.model.kind,
-    equations: typeset(modelEquations(summary.model.kind)),
+    equations: typeset(modelEquations(summary.model.kind, finitePopulationRun(run))),
     summaryEquations: typeset(summaryEquations(summary.interval, summary.model.kind)),
     priors,
     varianceNote: summary.model.variance_note,

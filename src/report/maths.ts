@@ -61,7 +61,7 @@ export function describePrior(key: string, spec: PriorSpec | null): { tex: strin
     case 'half_cauchy':
       return {
         tex: `${sigma} \\sim \\text{half-Cauchy}(0,\\ A),\\ A = ${texNumber(p.scale)}`,
-        values: `half-Cauchy on the standard deviation, scale A = ${texNumber(p.scale)}; sampled through the inverse-gamma mixture of Huang & Wand (2013)`,
+        values: `half-Cauchy on the standard deviation, scale A = ${texNumber(p.scale)} (density used directly by the collapsed sampler; the plain sampler uses the inverse-gamma mixture of Huang & Wand 2013)`,
       };
     case 'inverse_gamma':
       return {
@@ -92,7 +92,7 @@ function escapeHtml(text: string): string {
 }
 
 /** The model's equations, in the order the appendix states them. */
-export function modelEquations(kind: string): Equation[] {
+export function modelEquations(kind: string, finitePopulation = false): Equation[] {
   const weightArea = 'w_i = \\frac{\\sigma_u^2}{\\sigma_u^2 + \\psi_i}';
   switch (kind) {
     case 'area':
@@ -110,6 +110,14 @@ export function modelEquations(kind: string): Equation[] {
         { lead: 'Unit $j$ in site $i$ (nested-error regression, Battese, Harter & Fuller 1988):', tex: 'y_{ij} = \\mathbf{x}_{ij}^{\\top}\\boldsymbol{\\beta} + u_i + e_{ij},\\qquad u_i \\sim \\mathcal{N}(0,\\ \\sigma_u^2),\\quad e_{ij} \\sim \\mathcal{N}(0,\\ \\sigma_e^2)' },
         { lead: 'Target: the site mean at the known population covariate means $\\bar{\\mathbf{X}}_i$ of site $i$:', tex: '\\mu_i = \\bar{\\mathbf{X}}_i^{\\top}\\boldsymbol{\\beta} + u_i' },
         { lead: 'Weight on own data for a site with $n_i$ sampled units:', tex: 'w_i = \\frac{\\sigma_u^2}{\\sigma_u^2 + \\sigma_e^2 / n_i}' },
+        ...(finitePopulation
+          ? [
+              {
+                lead: 'Published target here: the finite-population mean of the site\'s $N_i$ units — the $n_i$ sampled values as observed, model predictions for the rest ($\\bar{\\mathbf{X}}_{i,r}$ the mean covariates of the unsampled units):',
+                tex: '\\bar{Y}_i = \\frac{n_i}{N_i}\\,\\bar{y}_i + \\frac{N_i - n_i}{N_i}\\left(\\bar{\\mathbf{X}}_{i,r}^{\\top}\\boldsymbol{\\beta} + u_i + \\bar{e}_{i,r}\\right)',
+              },
+            ]
+          : []),
       ];
     case 'counts':
       return [
