@@ -16,6 +16,7 @@ import {
   pgVariance,
 } from '../src/sampler/polya-gamma.js';
 import { Z_TWO_SIDED_1E5, kolmogorovUpperTail, ksTest } from './support/reference-distributions.js';
+import { gammaSeriesLogCf, pgCumulant, pgKolmogorovBound, pgLogCf, pgMeanBySeries } from './support/pg-characteristic.js';
 
 // False-alarm rates, all with fixed seeds: every goodness-of-fit test (one- or two-sample
 // Kolmogorov–Smirnov) rejects at P < 1e-4; every moment check uses a two-sided z of 4.4172
@@ -42,39 +43,6 @@ function draws(n: number, draw: () => number): Float64Array {
 // ---------------------------------------------------------------------------------------------
 // Exact reference quantities from the series definition ω = Σ_k w_k g_k, g_k ~ Gamma(b, 1)
 
-/** Weights w_k = 1/(2π²(k − ½)² + z²/2) of Polson, Scott & Windle (2013, Definition 1). */
-function weight(k: number, z: number): number {
-  const h = k - 0.5;
-  return 1 / (2 * PI * PI * h * h + 0.5 * z * z);
-}
-
-/**
- * Cumulant κ_r = b (r − 1)! Σ_k w_k^r for r ≥ 2 (cumulants of independent gammas add), summed
- * from the smallest term, plus an integral for the terms beyond 2·10⁵.
- */
-function cumulant(r: number, b: number, z: number): number {
-  const n = 200_000;
-  // Tail beyond n: ∫_n^∞ (2π²s²)^{−r} ds, relative error (κ/n)² with κ = |z|/(2π).
-  let sum = (2 * PI * PI) ** -r * n ** (1 - 2 * r) / (2 * r - 1);
-  for (let k = n; k >= 1; k--) sum += weight(k, z) ** r;
-  let factorial = 1;
-  for (let j = 2; j < r; j++) factorial *= j;
-  return b * factorial * sum;
-}
-
-/**
- * Mean b Σ_k w_k: the sum to N plus the tail ∫_{N+½}^∞ w(s) ds = atan(κ/N)/(2π²κ) with
- * κ = |z|/(2π) (1/(2π²N) at z = 0); the midpoint-rule error is about 1e-18 for N = 10⁵.
- */
-function meanBySeries(b: number, z: number): number {
-  const n = 100_000;
-  let sum = 0;
-  for (let k = n; k >= 1; k--) sum += weight(k, z);
-  const kappa = Math.abs(z) / (2 * PI);
-  const tail = kappa === 0 ? 1 / n : Math.atan(kappa / n) / kappa;
-  return b * (sum + tail / (2 * PI * PI));
-}
-
 /** Checks sample mean and variance against exact moments; sd of s² is √((μ4 − σ⁴)/n). */
 function expectPgMoments(sample: Float64Array, b: number, z: number): void {
   const n = sample.length;
@@ -85,7 +53,7 @@ function expectPgMoments(sample: Float64Array, b: number, z: number): void {
   for (const x of sample) squares += (x - mean) * (x - mean);
   const variance = squares / (n - 1);
   const exactVariance = pgVariance(b, z);
-  const mu4 = cumulant(4, b, z) + 3 * exactVariance * exactVariance;
+  const mu4 = pgCumulant(4, b, z) + 3 * exactVariance * exactVariance;
   expect(Math.abs(mean - pgMean(b, z))).toBeLessThan(Z * Math.sqrt(exactVariance / n));
   expect(Math.abs(variance - exactVariance)).toBeLessThan(
     Z * Math.sqrt((mu4 - exactVariance * exactVariance) / n),
@@ -94,29 +62,6 @@ function expectPgMoments(sample: Float64Array, b: number, z: number): void {
 
 // ---------------------------------------------------------------------------------------------
 // Characteristic functions and their inversion
-
-/**
- * [Re, Im] of log cosh(w) for w = √(c² − iu/2) (principal root, Re w > 0), computed as
- * w + log(1 + e^{−2w}) − log 2, which stays on the continuous branch.
- */
-function logCoshRoot(c: number, u: number): [number, number] {
-  const re = c * c;
-  const im = -0.5 * u;
-  const wr = Math.sqrt(0.5 * (Math.hypot(re, im) + re));
-  const wi = im / (2 * wr); // stable form of the imaginary part of the root
-  const m = Math.exp(-2 * wr);
-  const zr = 1 + m * Math.cos(2 * wi);
-  const zi = -m * Math.sin(2 * wi);
-  return [wr + 0.5 * Math.log(zr * zr + zi * zi) - Math.LN2, wi + Math.atan2(zi, zr)];
-}
-
-/** log E[e^{iuω}] for ω ~ PG(b, z) = b [log cosh(z/2) − log cosh(√(z²/4 − iu/2))]. */
-function logCfExact(b: number, z: number, u: number): [number, number] {
-  const c = 0.5 * Math.abs(z);
-  const logCoshC = c + Math.log1p(Math.exp(-2 * c)) - Math.LN2;
-  const [r, i] = logCoshRoot(c, u);
-  return [b * (logCoshC - r), -b * i];
-}
 
 /** The exact characteristic function on a uniform grid 0 < u ≤ U where |φ(U)| < e^{−45}. */
 interface CfGrid {
@@ -129,14 +74,14 @@ interface CfGrid {
 
 function exactCfGrid(b: number, z: number, nodes: number): CfGrid {
   let limit = 1;
-  while (logCfExact(b, z, limit)[0] > -45) limit *= 1.25;
+  while (pgLogCf(b, z, limit)[0] > -45) limit *= 1.25;
   const h = limit / nodes;
   const u = new Float64Array(nodes + 1);
   const re = new Float64Array(nodes + 1);
   const im = new Float64Array(nodes + 1);
   for (let j = 1; j <= nodes; j++) {
     u[j] = j * h;
-    const [lr, li] = logCfExact(b, z, u[j]);
+    const [lr, li] = pgLogCf(b, z, u[j]);
     const modulus = Math.exp(lr);
     re[j] = modulus * Math.cos(li);
     im[j] = modulus * Math.sin(li);
@@ -159,63 +104,9 @@ function invertCdf(grid: CfGrid, x: number): number {
   return 0.5 - (sum * h) / (3 * PI);
 }
 
-/**
- * log characteristic function of the gamma-series approximation of src/ for (b, z), rebuilt from
- * its description: Σ_{k≤K} Gamma(b) w_k plus Gamma(α) θ with the exact tail mean and variance.
- */
+/** The gamma-series approximation of src/ for (b, z), rebuilt from its description. */
 function seriesApproximation(b: number, z: number): (u: number) => [number, number] {
-  const terms = pgSeriesTerms(z);
-  const w: number[] = [];
-  let s1 = 0;
-  let s2 = 0;
-  for (let k = 1; k <= terms; k++) {
-    w.push(weight(k, z));
-    s1 += w[k - 1];
-    s2 += w[k - 1] ** 2;
-  }
-  const tailMean = meanBySeries(b, z) - b * s1;
-  const tailVariance = cumulant(2, b, z) - b * s2;
-  const theta = tailVariance / tailMean;
-  const alpha = tailMean / theta;
-  return (u) => {
-    // log (1 − iuw)^{−b} = −(b/2) log(1 + u²w²) + i b atan(uw)
-    let re = -0.5 * alpha * Math.log1p(u * u * theta * theta);
-    let im = alpha * Math.atan(u * theta);
-    for (const x of w) {
-      re -= 0.5 * b * Math.log1p(u * u * x * x);
-      im += b * Math.atan(u * x);
-    }
-    return [re, im];
-  };
-}
-
-/**
- * Upper bound on sup_x |F_approx(x) − F_exact(x)| from Gil-Pelaez: (1/π) ∫ |φ_a − φ_e|/u du, with
- * φ_a − φ_e = φ_e (e^D − 1), D = log φ_a − log φ_e, evaluated without cancellation.
- */
-function kolmogorovDistanceBound(
-  b: number,
-  z: number,
-  logCfApprox: (u: number) => [number, number],
-  nodes = 4000,
-): number {
-  let limit = 1;
-  while (logCfExact(b, z, limit)[0] > -45) limit *= 1.25;
-  const h = limit / nodes;
-  let sum = 0;
-  for (let j = 1; j <= nodes; j++) {
-    const u = j * h;
-    const [er, ei] = logCfExact(b, z, u);
-    const [ar, ai] = logCfApprox(u);
-    const dr = ar - er;
-    const di = ai - ei;
-    const s = Math.sin(0.5 * di);
-    // e^{D} − 1 = (e^{dr} − 1) cos di − 2 sin²(di/2) + i e^{dr} sin di
-    const xr = Math.expm1(dr) * Math.cos(di) - 2 * s * s;
-    const xi = Math.exp(dr) * Math.sin(di);
-    sum += ((j === nodes ? 1 : j % 2 === 1 ? 4 : 2) * Math.exp(er) * Math.hypot(xr, xi)) / u;
-  }
-  return (sum * h) / (3 * PI);
+  return gammaSeriesLogCf(b, z, pgSeriesTerms(z));
 }
 
 /**
@@ -295,8 +186,8 @@ describe('exact moments', () => {
     // of Σ w_k g_k computed term by term; both sides of the |z| = 0.2 switch to a Taylor series.
     for (const z of [0, 1e-8, 0.05, 0.15, 0.1999, 0.2, 0.2001, 0.3, 1, 1.5, 6, 20, 50, 300]) {
       for (const zz of [z, -z]) {
-        expect(Math.abs(pgMean(3, zz) / meanBySeries(3, zz) - 1)).toBeLessThan(1e-12);
-        expect(Math.abs(pgVariance(3, zz) / cumulant(2, 3, zz) - 1)).toBeLessThan(1e-12);
+        expect(Math.abs(pgMean(3, zz) / pgMeanBySeries(3, zz) - 1)).toBeLessThan(1e-12);
+        expect(Math.abs(pgVariance(3, zz) / pgCumulant(2, 3, zz) - 1)).toBeLessThan(1e-12);
       }
     }
   });
@@ -505,7 +396,7 @@ describe('accuracy of the large-b approximations', () => {
       for (let z = 2 * PI - 0.01; z < zSwitch; z += 2 * PI) zs.push(z);
       zs.push(zSwitch - 0.05);
       for (const z of zs) {
-        const distance = kolmogorovDistanceBound(b, z, seriesApproximation(b, z));
+        const distance = pgKolmogorovBound(b, z, seriesApproximation(b, z));
         worst = Math.max(worst, distance);
         expect(distance).toBeLessThan(PG_SERIES_KS_BOUND);
       }
@@ -520,7 +411,7 @@ describe('accuracy of the large-b approximations', () => {
     [21, 4.7e-10],
     [200, 1.3e-10],
   ])('gamma series at b = %s, z = 0: Kolmogorov distance as stated in the method note', (b, stated) => {
-    const distance = kolmogorovDistanceBound(b, 0, seriesApproximation(b, 0));
+    const distance = pgKolmogorovBound(b, 0, seriesApproximation(b, 0));
     expect(Math.abs(distance / stated - 1)).toBeLessThan(0.05);
     expect(PG_METHOD_NOTE).toContain(stated.toExponential(1));
   });
@@ -533,9 +424,9 @@ describe('accuracy of the large-b approximations', () => {
     const b = 21;
     const mean = pgMean(b, 0);
     const variance = pgVariance(b, 0);
-    const skewness = cumulant(3, b, 0) / variance ** 1.5;
+    const skewness = pgCumulant(3, b, 0) / variance ** 1.5;
     const normal = (u: number): [number, number] => [-0.5 * variance * u * u, mean * u];
-    const distance = kolmogorovDistanceBound(b, 0, normal);
+    const distance = pgKolmogorovBound(b, 0, normal);
     const edgeworth = skewness / (6 * Math.sqrt(2 * PI));
     expect(distance).toBeGreaterThan(0.9 * edgeworth);
     expect(distance).toBeLessThan(1.5 * edgeworth);

@@ -5,7 +5,7 @@
  * g_k ~ Gamma(b, 1), whose Laplace transform is cosh^b(z/2)/cosh^b(√((z²/2 + s)/2)). The
  * distance bound is the Gil-Pelaez (1951, Biometrika 38, 481–482) inversion formula applied to
  * the difference of two characteristic functions: sup_x |F_a − F_e| ≤ (1/π) ∫ |φ_a − φ_e|/u du.
- * (The same computations as tests/polya-gamma.test.ts, kept here for the counts-model tests.)
+ * Shared by tests/polya-gamma.test.ts and the counts-model tests.
  */
 const PI = Math.PI;
 
