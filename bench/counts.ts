@@ -8,22 +8,16 @@
  *
  * Each scenario runs in its own process, so its peak RSS is its own.
  */
-import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
-import { readFile } from 'node:fs/promises';
-import { spawnSync } from 'node:child_process';
-import { tmpdir } from 'node:os';
+import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { performance } from 'node:perf_hooks';
 import { fileURLToPath } from 'node:url';
-import { runFit } from '../src/pipeline/fit.js';
+import { childScenario, printPeakRss, runInChildren, timeFit, type FitScenario } from './fit-scenario.js';
 import { createRng } from '../src/sampler/rng.js';
 import { normal } from '../src/sampler/variates.js';
 
-interface Scenario {
-  name: string;
+interface Scenario extends FitScenario {
   sites: number;
   siteSd: number;
-  method: 'collapsed' | 'plain';
 }
 
 const CHAINS = 4;
@@ -65,41 +59,8 @@ function writeScenario(dir: string, s: Scenario): string {
   return join(dir, 'config.yaml');
 }
 
-function median(values: number[]): number {
-  const v = [...values].sort((a, b) => a - b);
-  const h = (v.length - 1) / 2;
-  return (v[Math.floor(h)] + v[Math.ceil(h)]) / 2;
-}
-
-/** Bulk ESS of σ_u and the median bulk ESS over sites, from the run's diagnostics.csv. */
-async function essFigures(runDir: string): Promise<{ sigma: number; medianSite: number }> {
-  const text = await readFile(join(runDir, 'diagnostics.csv'), 'utf8');
-  const rows = text.trim().split('\n').slice(1).map((l) => l.split(','));
-  const sigma = Number(rows.find((r) => r[0] === 'site_sd')![2]);
-  const sites = rows.filter((r) => r[0].startsWith('site:')).map((r) => Number(r[2]));
-  return { sigma, medianSite: median(sites) };
-}
-
 async function runScenario(s: Scenario): Promise<void> {
-  const dir = mkdtempSync(join(tmpdir(), 'shrinkwell-bench-counts-'));
-  try {
-    const config = writeScenario(dir, s);
-    const start = performance.now();
-    const outcome = await runFit({ configPath: config, outDir: join(dir, 'run'), command: ['bench'] });
-    const seconds = (performance.now() - start) / 1000;
-    const ess = await essFigures(outcome.runDir);
-    const total = CHAINS * DRAWS;
-    const t = outcome.timingsMs;
-    console.log(
-      `${s.name.padEnd(28)} ${s.method.padEnd(9)} wall ${seconds.toFixed(2)} s ` +
-        `(read ${t.read} ms, sample ${t.sample} ms, summarize ${t.summarize} ms [diagnostics ${t.diagnostics}, estimates ${t.estimates}, frequentist ${t.frequentist ?? 0}, certificate ${t.certificate ?? 0}, checks ${t.checks ?? 0}], write ${t.write} ms)  ` +
-        `ESS/draw σ_u ${(ess.sigma / total).toFixed(2)}, median site ${(ess.medianSite / total).toFixed(2)}  ` +
-        `ESS/s σ_u ${Math.round(ess.sigma / seconds)}, median site ${Math.round(ess.medianSite / seconds)}  ` +
-        `converged ${outcome.converged}`,
-    );
-  } finally {
-    rmSync(dir, { recursive: true, force: true });
-  }
+  await timeFit(s, CHAINS * DRAWS, (dir) => writeScenario(dir, s));
 }
 
 const scenarios: Scenario[] = [
@@ -112,16 +73,13 @@ const scenarios: Scenario[] = [
 /** Runs every scenario (or those of one method), each in a child process of this file. */
 export function countsBenchmark(only?: string): void {
   console.log(`counts model: ${CHAINS} chains × (${WARMUP} warmup + ${DRAWS} draws), trials 5–500, 2 covariates`);
-  scenarios.forEach((s, k) => {
-    if (only && s.method !== only) return;
-    spawnSync(process.execPath, [fileURLToPath(import.meta.url), '--counts-scenario', String(k)], { stdio: 'inherit' });
-  });
+  runInChildren(fileURLToPath(import.meta.url), '--counts-scenario', scenarios, only);
 }
 
-const child = process.argv.indexOf('--counts-scenario');
+const child = childScenario('--counts-scenario');
 if (child >= 0) {
-  await runScenario(scenarios[Number(process.argv[child + 1])]);
-  console.log(`${''.padEnd(38)} peak RSS ${(process.resourceUsage().maxRSS / 1024).toFixed(0)} MB`);
+  await runScenario(scenarios[child]);
+  printPeakRss();
 } else if (process.argv[1] === fileURLToPath(import.meta.url)) {
   countsBenchmark(process.argv[2]);
 }

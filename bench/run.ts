@@ -8,25 +8,17 @@
  * Targets on a 2-core machine: ≤ 5 s, ESS per draw for σ_u ≥ 0.5, peak RSS ≤ 600 MB.
  * The first scenario also renders its PDF report (target ≤ 60 s) and counts its pages.
  */
-import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
-import { tmpdir } from 'node:os';
+import { spawnSync } from 'node:child_process';
+import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { performance } from 'node:perf_hooks';
-import { runFit } from '../src/pipeline/fit.js';
-import { renderReport } from '../src/report/index.js';
+import { fileURLToPath } from 'node:url';
 import { createRng } from '../src/sampler/rng.js';
 import { normal } from '../src/sampler/variates.js';
-import { readFile } from 'node:fs/promises';
-import { spawnSync } from 'node:child_process';
-import { fileURLToPath } from 'node:url';
+import { childScenario, printPeakRss, runInChildren, timeFit, type FitScenario } from './fit-scenario.js';
 
-interface Scenario {
-  name: string;
+interface Scenario extends FitScenario {
   sites: number;
   siteSd: number;
-  method: 'collapsed' | 'plain';
-  /** Also render the PDF report of the run and time it. */
-  report?: boolean;
 }
 
 const CHAINS = 4;
@@ -63,49 +55,8 @@ function writeScenario(dir: string, s: Scenario): string {
   return join(dir, 'config.yaml');
 }
 
-function median(values: number[]): number {
-  const v = [...values].sort((a, b) => a - b);
-  const h = (v.length - 1) / 2;
-  return (v[Math.floor(h)] + v[Math.ceil(h)]) / 2;
-}
-
-async function essFigures(runDir: string): Promise<{ sigma: number; medianSite: number }> {
-  const text = await readFile(join(runDir, 'diagnostics.csv'), 'utf8');
-  const rows = text.trim().split('\n').slice(1).map((l) => l.split(','));
-  const sigma = Number(rows.find((r) => r[0] === 'site_sd')![2]);
-  const sites = rows.filter((r) => r[0].startsWith('site:')).map((r) => Number(r[2]));
-  return { sigma, medianSite: median(sites) };
-}
-
 async function runScenario(s: Scenario): Promise<void> {
-  const dir = mkdtempSync(join(tmpdir(), 'shrinkwell-bench-'));
-  try {
-    const config = writeScenario(dir, s);
-    const start = performance.now();
-    const outcome = await runFit({ configPath: config, outDir: join(dir, 'run'), command: ['bench'] });
-    const seconds = (performance.now() - start) / 1000;
-    const ess = await essFigures(outcome.runDir);
-    const total = CHAINS * DRAWS;
-    const t = outcome.timingsMs;
-    console.log(
-      `${s.name.padEnd(28)} ${s.method.padEnd(9)} wall ${seconds.toFixed(2)} s ` +
-        `(read ${t.read} ms, sample ${t.sample} ms, summarize ${t.summarize} ms [diagnostics ${t.diagnostics}, estimates ${t.estimates}, frequentist ${t.frequentist ?? 0}, certificate ${t.certificate ?? 0}, checks ${t.checks ?? 0}], write ${t.write} ms)  ` +
-        `ESS/draw σ_u ${(ess.sigma / total).toFixed(2)}, median site ${(ess.medianSite / total).toFixed(2)}  ` +
-        `ESS/s σ_u ${Math.round(ess.sigma / seconds)}, median site ${Math.round(ess.medianSite / seconds)}  ` +
-        `converged ${outcome.converged}`,
-    );
-    if (s.report) {
-      const begin = performance.now();
-      const report = await renderReport(outcome.runDir);
-      const reportSeconds = (performance.now() - begin) / 1000;
-      console.log(
-        `${''.padEnd(38)} report: ${reportSeconds.toFixed(1)} s, ${report.pages ?? 0} pages` +
-          (report.warning ? ` (${report.warning})` : ''),
-      );
-    }
-  } finally {
-    rmSync(dir, { recursive: true, force: true });
-  }
+  await timeFit(s, CHAINS * DRAWS, (dir) => writeScenario(dir, s));
 }
 
 const scenarios: Scenario[] = [
@@ -115,21 +66,14 @@ const scenarios: Scenario[] = [
   { name: '3000 sites, σ_u = 0.01', sites: 3000, siteSd: 0.01, method: 'plain' },
 ];
 
-/**
- * Each scenario runs in its own process so its peak RSS is its own (worker threads included:
- * they share the process).
- */
-const child = process.argv.indexOf('--scenario');
+const child = childScenario('--scenario');
 if (child >= 0) {
-  await runScenario(scenarios[Number(process.argv[child + 1])]);
-  console.log(`${''.padEnd(38)} peak RSS ${(process.resourceUsage().maxRSS / 1024).toFixed(0)} MB`);
+  await runScenario(scenarios[child]);
+  printPeakRss();
 } else {
   const only = process.argv[2];
   console.log(`area model: ${CHAINS} chains × (${WARMUP} warmup + ${DRAWS} draws), 3 covariates`);
-  scenarios.forEach((s, k) => {
-    if (only && s.method !== only) return;
-    spawnSync(process.execPath, [fileURLToPath(import.meta.url), '--scenario', String(k)], { stdio: 'inherit' });
-  });
+  runInChildren(fileURLToPath(import.meta.url), '--scenario', scenarios, only);
   // Unit model: streaming ingest and fit at 100k and 1M rows (bench/unit.ts); `npm run bench -- unit` alone.
   if (!only || only === 'unit') spawnSync(process.execPath, [fileURLToPath(new URL('./unit.js', import.meta.url))], { stdio: 'inherit' });
   // Counts model: 3,000 sites, trials 5–500 (bench/counts.ts); `npm run bench -- counts` alone.
