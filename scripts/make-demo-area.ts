@@ -14,6 +14,7 @@
  */
 import { mkdirSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { hexCells, mulberry32, normalFrom, toLonLat, type Cell } from './demo-kit.js';
 
 /** Simulation settings: the "truth" the demo is drawn from. */
 const TRUTH = {
@@ -28,6 +29,9 @@ const TRUTH = {
 
 const REGION = 'Ondralis Plateau';
 
+/** Where the invented map sits: open ocean, hexagon circumradius ≈ 11 km. */
+const ORIGIN = { lon: -128.2, lat: -40.3, kmPerUnit: 11 };
+
 /** Invented district names (no real places intended). */
 const NAMES = [
   'Arvessa', 'Belomiro', 'Caddrinor', 'Dunmaret', 'Eskelowa', 'Falvarre', 'Genneti', 'Holvesca',
@@ -39,96 +43,6 @@ const NAMES = [
 
 /** Hexagons per row, north to south: 40 districts in a rounded block. */
 const ROW_LENGTHS = [6, 8, 9, 9, 8];
-
-// ---------------------------------------------------------------------------------------------
-// A tiny seeded generator (mulberry32) and normal variates (Box–Muller). Demo-only: the tool's
-// own sampler uses src/sampler.
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-function normalFrom(uniform: () => number): () => number {
-  return () => {
-    const u1 = 1 - uniform(); // in (0, 1]
-    const u2 = uniform();
-    return Math.sqrt(-2 * Math.log(u1)) * Math.cos(2 * Math.PI * u2);
-  };
-}
-
-/** FNV-1a hash of a string, for per-vertex jitter that does not depend on visiting order. */
-function hashString(text: string): number {
-  let h = 0x811c9dc5;
-  for (let i = 0; i < text.length; i++) {
-    h ^= text.charCodeAt(i);
-    h = Math.imul(h, 0x01000193) >>> 0;
-  }
-  return h;
-}
-
-// ---------------------------------------------------------------------------------------------
-// Geometry: a jittered hexagon tessellation. Shared corners and edge midpoints are jittered by a
-// hash of their exact position, so neighbouring districts share boundaries exactly.
-
-interface Cell {
-  cx: number;
-  cy: number;
-  ring: Array<[number, number]>;
-}
-
-function hexCells(): Cell[] {
-  const width = Math.sqrt(3); // pointy-top hexagon of circumradius 1
-  const maxLen = Math.max(...ROW_LENGTHS);
-  const jitterPoint = (x: number, y: number, amount: number): [number, number] => {
-    const key = `${x.toFixed(5)},${y.toFixed(5)}`;
-    const rng = mulberry32(hashString(key) ^ TRUTH.seed);
-    const angle = 2 * Math.PI * rng();
-    const radius = amount * Math.sqrt(rng());
-    return [x + radius * Math.cos(angle), y + radius * Math.sin(angle)];
-  };
-  const cells: Cell[] = [];
-  ROW_LENGTHS.forEach((len, row) => {
-    const offset = ((maxLen - len) / 2) * width + (row % 2 === 1 ? width / 2 : 0);
-    for (let col = 0; col < len; col++) {
-      const cx = offset + col * width;
-      const cy = -row * 1.5; // north is up: rows go south
-      const corners: Array<[number, number]> = [];
-      for (let k = 0; k < 6; k++) {
-        const angle = (Math.PI / 180) * (90 + 60 * k); // counter-clockwise from the top
-        corners.push([cx + Math.cos(angle), cy + Math.sin(angle)]);
-      }
-      const ring: Array<[number, number]> = [];
-      for (let k = 0; k < 6; k++) {
-        const [ax, ay] = corners[k];
-        const [bx, by] = corners[(k + 1) % 6];
-        ring.push(jitterPoint(ax, ay, 0.22));
-        ring.push(jitterPoint((ax + bx) / 2, (ay + by) / 2, 0.12));
-      }
-      ring.push(ring[0]);
-      cells.push({ cx, cy, ring });
-    }
-  });
-  return cells;
-}
-
-/** Plane units (hexagon circumradius ≈ 11 km) to lon/lat in an empty stretch of ocean. */
-function toLonLat([x, y]: [number, number]): [number, number] {
-  const lon0 = -128.2;
-  const lat0 = -40.3;
-  const kmPerUnit = 11;
-  const kmPerDegLat = 111.2;
-  const kmPerDegLon = kmPerDegLat * Math.cos((lat0 * Math.PI) / 180);
-  const lon = lon0 + (x * kmPerUnit) / kmPerDegLon;
-  const lat = lat0 + (y * kmPerUnit) / kmPerDegLat;
-  return [Number(lon.toFixed(5)), Number(lat.toFixed(5))];
-}
 
 // ---------------------------------------------------------------------------------------------
 // The survey.
@@ -262,7 +176,7 @@ function geojson(cells: Cell[], districts: District[]): string {
     type: 'Feature',
     properties: { district: districts[i].id, name: districts[i].name },
     // Exterior ring counter-clockwise (RFC 7946 right-hand rule).
-    geometry: { type: 'Polygon', coordinates: [cell.ring.map(toLonLat)] },
+    geometry: { type: 'Polygon', coordinates: [cell.ring.map((point) => toLonLat(point, ORIGIN))] },
   }));
   const collection = {
     type: 'FeatureCollection',
@@ -301,7 +215,7 @@ report:
 function main(): void {
   const outDir = process.argv[2] ?? join('data-demo', 'area');
   mkdirSync(outDir, { recursive: true });
-  const cells = hexCells();
+  const cells = hexCells(ROW_LENGTHS, TRUTH.seed);
   const districts = simulate(cells);
   writeFileSync(join(outDir, 'districts.csv'), districtsCsv(districts));
   writeFileSync(join(outDir, 'districts.geojson'), geojson(cells, districts));

@@ -16,6 +16,7 @@
  */
 import { mkdirSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { hexCells, mulberry32, normalFrom, toLonLat, type Cell } from './demo-kit.js';
 
 /** Simulation settings: the "truth" the demo is drawn from (logit scale). */
 const TRUTH = {
@@ -27,6 +28,9 @@ const TRUTH = {
 };
 
 const REGION = 'Vaskareth Coast';
+
+/** Where the invented map sits: open ocean, hexagon circumradius ≈ 9 km. */
+const ORIGIN = { lon: -21.4, lat: -47.6, kmPerUnit: 9 };
 
 /** Invented district names (no real places intended). */
 const NAMES = [
@@ -43,29 +47,6 @@ const NAMES = [
 /** Hexagons per row, north to south: 60 districts in a rounded block. */
 const ROW_LENGTHS = [6, 9, 10, 11, 10, 8, 6];
 
-// ---------------------------------------------------------------------------------------------
-// A tiny seeded generator (mulberry32) and normal variates (Box–Muller). Demo-only: the tool's
-// own sampler uses src/sampler.
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-function normalFrom(uniform: () => number): () => number {
-  return () => {
-    const u1 = 1 - uniform(); // in (0, 1]
-    const u2 = uniform();
-    return Math.sqrt(-2 * Math.log(u1)) * Math.cos(2 * Math.PI * u2);
-  };
-}
-
 /** Binomial(n, p) as a sum of n Bernoulli trials (n is small here). */
 function binomialFrom(uniform: () => number): (n: number, p: number) => number {
   return (n, p) => {
@@ -73,70 +54,6 @@ function binomialFrom(uniform: () => number): (n: number, p: number) => number {
     for (let j = 0; j < n; j++) if (uniform() < p) cases++;
     return cases;
   };
-}
-
-/** FNV-1a hash of a string, for per-vertex jitter that does not depend on visiting order. */
-function hashString(text: string): number {
-  let h = 0x811c9dc5;
-  for (let i = 0; i < text.length; i++) {
-    h ^= text.charCodeAt(i);
-    h = Math.imul(h, 0x01000193) >>> 0;
-  }
-  return h;
-}
-
-// ---------------------------------------------------------------------------------------------
-// Geometry: a jittered hexagon tessellation; shared corners and edge midpoints are jittered by a
-// hash of their exact position, so neighbouring districts share boundaries exactly.
-
-interface Cell {
-  cx: number;
-  cy: number;
-  ring: Array<[number, number]>;
-}
-
-function hexCells(): Cell[] {
-  const width = Math.sqrt(3); // pointy-top hexagon of circumradius 1
-  const maxLen = Math.max(...ROW_LENGTHS);
-  const jitterPoint = (x: number, y: number, amount: number): [number, number] => {
-    const rng = mulberry32(hashString(`${x.toFixed(5)},${y.toFixed(5)}`) ^ TRUTH.seed);
-    const angle = 2 * Math.PI * rng();
-    const radius = amount * Math.sqrt(rng());
-    return [x + radius * Math.cos(angle), y + radius * Math.sin(angle)];
-  };
-  const cells: Cell[] = [];
-  ROW_LENGTHS.forEach((len, row) => {
-    const offset = ((maxLen - len) / 2) * width + (row % 2 === 1 ? width / 2 : 0);
-    for (let col = 0; col < len; col++) {
-      const cx = offset + col * width;
-      const cy = -row * 1.5; // north is up: rows go south
-      const corners: Array<[number, number]> = [];
-      for (let k = 0; k < 6; k++) {
-        const angle = (Math.PI / 180) * (90 + 60 * k); // counter-clockwise from the top
-        corners.push([cx + Math.cos(angle), cy + Math.sin(angle)]);
-      }
-      const ring: Array<[number, number]> = [];
-      for (let k = 0; k < 6; k++) {
-        const [ax, ay] = corners[k];
-        const [bx, by] = corners[(k + 1) % 6];
-        ring.push(jitterPoint(ax, ay, 0.22));
-        ring.push(jitterPoint((ax + bx) / 2, (ay + by) / 2, 0.12));
-      }
-      ring.push(ring[0]);
-      cells.push({ cx, cy, ring });
-    }
-  });
-  return cells;
-}
-
-/** Plane units (hexagon circumradius ≈ 9 km) to lon/lat in an empty stretch of ocean. */
-function toLonLat([x, y]: [number, number]): [number, number] {
-  const lon0 = -21.4;
-  const lat0 = -47.6;
-  const kmPerUnit = 9;
-  const kmPerDegLat = 111.2;
-  const kmPerDegLon = kmPerDegLat * Math.cos((lat0 * Math.PI) / 180);
-  return [Number((lon0 + (x * kmPerUnit) / kmPerDegLon).toFixed(5)), Number((lat0 + (y * kmPerUnit) / kmPerDegLat).toFixed(5))];
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -221,7 +138,7 @@ function geojson(cells: Cell[], districts: District[]): string {
     type: 'Feature',
     properties: { district: districts[i].id, name: districts[i].name },
     // Exterior ring counter-clockwise (RFC 7946 right-hand rule).
-    geometry: { type: 'Polygon', coordinates: [cell.ring.map(toLonLat)] },
+    geometry: { type: 'Polygon', coordinates: [cell.ring.map((point) => toLonLat(point, ORIGIN))] },
   }));
   const name = `Districts of the ${REGION} (invented boundaries)`;
   const head = `{"type":"FeatureCollection","name":${JSON.stringify(name)},"features":[\n`;
@@ -257,7 +174,7 @@ report:
 function main(): void {
   const outDir = process.argv[2] ?? join('data-demo', 'counts');
   mkdirSync(outDir, { recursive: true });
-  const cells = hexCells();
+  const cells = hexCells(ROW_LENGTHS, TRUTH.seed);
   if (cells.length !== NAMES.length) throw new Error(`${cells.length} cells for ${NAMES.length} names`);
   const districts = simulate(cells);
   writeFileSync(join(outDir, 'districts.csv'), districtsCsv(districts));

@@ -17,6 +17,7 @@
  */
 import { mkdirSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { mulberry32, normalFrom } from './demo-kit.js';
 
 /** The "truth" the demo is drawn from. */
 const TRUTH = {
@@ -46,25 +47,6 @@ const SAMPLE_SIZES = [
 
 /** The district whose satellite greenness lies beyond every sampled district's (unsampled). */
 const OUTLYING = 28;
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-function normalFrom(uniform: () => number): () => number {
-  return () => {
-    const u1 = 1 - uniform();
-    const u2 = uniform();
-    return Math.sqrt(-2 * Math.log(u1)) * Math.cos(2 * Math.PI * u2);
-  };
-}
 
 interface District {
   id: string;
